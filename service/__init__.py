@@ -1,0 +1,1 @@
+"""dipshape.service: the faces of dipshape (CLI, REST, client, batch)."""

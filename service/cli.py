@@ -1,0 +1,129 @@
+"""The ``dipshape`` command line.
+
+Errors are turned into messages and exit codes by :mod:`service.errors` only; commands raise.
+"""
+
+from __future__ import annotations
+
+import logging
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from features.errors import DipshapeError
+from service.errors import cli_exit_code, cli_message
+
+__all__ = ["app", "main"]
+
+CAUTION = (
+    "A dipshape score is triage, not a discovery: a planet or exocomet call needs follow-up "
+    "(pixel-level and centroid checks, spectroscopy) before any claim."
+)
+
+app = typer.Typer(
+    name="dipshape",
+    help="Triage dips in stellar light curves by their shape.\n\n" + CAUTION,
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+
+
+def _fail(err: DipshapeError) -> typer.Exit:
+    typer.echo(cli_message(err), err=True)
+    return typer.Exit(cli_exit_code(err))
+
+
+@app.callback()
+def _root(
+    verbose: Annotated[bool, typer.Option("--verbose", "-v", help="Log progress details.")] = False,
+) -> None:
+    logging.basicConfig(level=logging.INFO if verbose else logging.WARNING,
+                        format="%(levelname)s %(name)s: %(message)s", stream=sys.stderr)
+
+
+@app.command()
+def simulate(
+    n: Annotated[int, typer.Option("--n", min=1, help="Number of segments.")] = 1000,
+    out: Annotated[Path, typer.Option("--out", help="Output folder.")] = Path("sim_out"),
+    fmt: Annotated[str, typer.Option("--format", help="csv (a file per segment) or parquet "
+                                     "(one long table).")] = "csv",
+    seed: Annotated[int, typer.Option(
+        "--seed", help="Master seed (results are reproducible).")] = 0,
+    classes: Annotated[str | None, typer.Option(
+        "--classes", help="Comma-separated subset of classes, e.g. planet,exocomet.")] = None,
+    jobs: Annotated[int, typer.Option("--jobs", "-j", min=1, help="Parallel processes.")] = 1,
+    plot: Annotated[Path | None, typer.Option(
+        "--plot", help="Also write a PNG gallery of four examples per class.")] = None,
+) -> None:
+    """Simulate labelled segments balanced across the classes.
+
+    Writes the segments and a labels table (labels.csv: id, label, subtype, SNR, cadence,
+    n_events and every true physical parameter).
+
+    Examples:
+
+      dipshape simulate --n 1000 --out sim --format csv --seed 0
+
+      dipshape simulate --n 200 --classes planet,eclipsing_binary --format parquet --out eb
+    """
+    from training.classes import CLASSES
+    from training.simulate import simulate_dataset, write_dataset
+
+    try:
+        chosen = tuple(c.strip() for c in classes.split(",") if c.strip()) if classes else CLASSES
+        segments = simulate_dataset(n, seed=seed, classes=chosen, n_jobs=jobs, progress=True)
+        labels = write_dataset(segments, out, fmt=fmt)
+        if plot is not None:
+            from training.gallery import plot_gallery
+
+            plot_gallery(segments, plot)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    counts = {c: sum(s.label == c for s in segments) for c in chosen}
+    typer.echo(f"wrote {len(segments)} segments to {out} ({fmt}); labels: {labels}")
+    typer.echo("  " + ", ".join(f"{c}: {k}" for c, k in counts.items()))
+
+
+@app.command()
+def demo(
+    out: Annotated[Path, typer.Option("--out", help="Folder for the demo's pictures.")] = Path(
+        "demo_out"),
+    seed: Annotated[int, typer.Option("--seed")] = 7,
+) -> None:
+    """Show the simulator at work: a few segments of each class and a gallery PNG.
+
+    Example:
+
+      dipshape demo --out demo_out
+    """
+    from rich.console import Console
+    from rich.table import Table
+
+    from training.gallery import plot_gallery
+    from training.simulate import simulate_dataset
+
+    try:
+        segments = simulate_dataset(20, seed=seed, id_prefix="LS-demo-")
+        png = plot_gallery(segments, out / "simulated_examples.png")
+    except DipshapeError as err:
+        raise _fail(err) from err
+    table = Table(title="Simulated segments of the (fictional) Lumen Survey")
+    for col in ("id", "class", "subtype", "points", "cadence [min]", "depth [ppm]", "SNR",
+                "events"):
+        table.add_column(col)
+    for s in segments:
+        t = s.truth
+        table.add_row(s.id, s.label, s.subtype, str(t["n_points"]), f"{t['cadence_min']:g}",
+                      f"{t['depth'] * 1e6:.0f}", f"{t['snr']:.1f}", str(t["n_events"]))
+    console = Console()
+    console.print(table)
+    console.print(f"gallery written to {png}")
+    console.print(CAUTION)
+
+
+def main() -> None:  # pragma: no cover - console entry point
+    """Run the CLI."""
+    app()

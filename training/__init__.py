@@ -1,0 +1,1 @@
+"""dipshape.training: simulation of labelled events, datasets, classifier fitting."""
