@@ -10,10 +10,11 @@ Hierarchy::
     ├── InputError                  (invalid_input) the data handed in cannot be scored
     │   ├── SegmentError                            arrays that fail validation
     │   │     too_few_points, length_mismatch, non_finite_time, constant_flux,
-    │   │     non_positive_flux_err, duplicate_times, non_finite_flux_err
+    │   │     non_positive_flux, non_positive_flux_err, duplicate_times, invalid_type, ...
     │   └── FileFormatError                         a file that cannot be read as a light curve
-    │         unreadable_file, empty_file, unsupported_format, missing_columns
-    ├── ParameterError              (invalid_parameter) a physical or numerical argument out of range
+    │         unreadable_file, empty_file, unsupported_format, missing_columns,
+    │         file_not_found, multiple_segments
+    ├── ParameterError              (invalid_parameter) an argument out of its allowed range
     └── ModelError                  (model_error)   model registry problems (later issues)
           model_not_found, model_integrity, feature_version_mismatch
 
