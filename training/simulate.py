@@ -272,8 +272,10 @@ def _eclipsing_binary(rng: np.random.Generator, priors: PriorTable, time: np.nda
     l3 = 0.0
     if subtype == "diluted":
         target = priors.draw("eb.diluted_depth", rng)
-        # undiluted primary depth from a fine grid across the primary eclipse
-        grid = t0 + np.linspace(-0.6 * t14, 0.6 * t14, 201)
+        # undiluted depth of the deeper eclipse (for R2 > R1 the secondary can be the deeper
+        # one), from a grid over the whole orbit fine enough to resolve the eclipses
+        n_grid = int(min(max(2000, 40.0 * period / max(t14, 1e-3)), 200_000))
+        grid = t0 + period * (np.arange(n_grid) / n_grid - 0.25)
         d0 = 1.0 - float(np.min(shapes.eclipsing_binary_flux(grid, **kwargs)))
         l3 = float(np.clip(1.0 - target / d0, 0.0, 0.999)) if d0 > target else 0.0
     flux = shapes.eclipsing_binary_flux(time, third_light=l3, **kwargs)
@@ -331,8 +333,9 @@ def _variability(rng: np.random.Generator, priors: PriorTable, time: np.ndarray)
         amps = [amp * float(rng.uniform(0.2, 1.0)) ** h for h in range(nh)]
         phases = list(rng.uniform(0, 2 * np.pi, nh))
         decay = priors.draw("var.spot_decay_days", rng)
+        t_ref = float(rng.uniform(time[0], time[-1]))  # when the spot pattern peaks
         flux = shapes.spot_modulation(time, period_days=period, amplitudes=amps, phases=phases,
-                                      decay_days=decay)
+                                      decay_days=decay, t_ref_days=t_ref)
         params = {"var.spot_period_days": period, "var.spot_amp": amp, "var.n_harmonics": nh,
                   "var.spot_decay_days": decay}
     elif subtype == "pulsation":
@@ -652,7 +655,7 @@ def write_dataset(
             cols = {"time": s.time, "flux": s.flux}
             if s.flux_err is not None:
                 cols["flux_err"] = s.flux_err
-            pd.DataFrame(cols).to_csv(out / f"{s.id}.csv", index=False, float_format="%.10g")
+            pd.DataFrame(cols).to_csv(out / f"{s.id}.csv", index=False, float_format="%.12g")
     else:
         frames = [
             pd.DataFrame({
