@@ -16,6 +16,8 @@ __all__ = [
     "SNR_SCAN_DURATIONS_DAYS",
     "FeatureSpec",
     "features_markdown",
+    "fill_markers",
+    "flags_markdown",
 ]
 
 FEATURE_VERSION = "1"
@@ -90,11 +92,15 @@ FEATURES: tuple[FeatureSpec, ...] = (
        "third standardised moment of time weighted by the flux deficit max(1 - f, 0) in the "
        "event window", "comets (tail after the head: > 0) vs symmetric transits (~0)"),
     _f("profile", "ingress_egress_ratio", "",
-       "ingress duration over egress duration of an asymmetric trapezoid fitted to the event "
-       "(ingress: first contact to full depth; egress: full depth to last contact)",
+       "time from first contact to the centre over time from the centre to last contact, of "
+       "the fitted limb-darkened transit profile with its time axis stretched independently "
+       "on each side",
        "comets (short ingress, long egress: << 1) vs planets and binaries (~1)"),
-    _f("profile", "ingress_days", "d", "ingress duration of the asymmetric trapezoid", "shape"),
-    _f("profile", "egress_days", "d", "egress duration of the asymmetric trapezoid", "shape"),
+    _f("profile", "ingress_days", "d",
+       "ingress ramp (first contact to full depth) of an asymmetric trapezoid fitted to the dip",
+       "shape"),
+    _f("profile", "egress_days", "d",
+       "egress ramp (full depth to last contact) of the asymmetric trapezoid", "shape"),
     _f("profile", "flat_bottom_fraction", "",
        "T23/T14 of the asymmetric trapezoid: flat part over total duration",
        "planets (flat, U-shaped) vs grazing binaries and V shapes (0)"),
@@ -198,3 +204,18 @@ def features_markdown() -> str:
         lines.append(f"| {i} | `{spec.name}` | {spec.unit} | {spec.definition} | "
                      f"{spec.separates} |")
     return "\n".join(lines) + "\n"
+
+
+def flags_markdown(flags: dict[str, str]) -> str:
+    """A flag table (``flag -> meaning``) as Markdown."""
+    lines = ["| flag | meaning |", "|---|---|"]
+    lines += [f"| `{name}` | {meaning} |" for name, meaning in flags.items()]
+    return "\n".join(lines) + "\n"
+
+
+def fill_markers(text: str, marker: str, body: str) -> str:
+    """Replace what stands between ``<!-- marker:start -->`` and ``<!-- marker:end -->``."""
+    start, end = f"<!-- {marker}:start -->", f"<!-- {marker}:end -->"
+    a = text.index(start) + len(start)
+    b = text.index(end)
+    return text[:a] + "\n" + body + text[b:]

@@ -44,7 +44,10 @@ __all__ = [
     "EventFits",
     "FamilyFit",
     "Window",
+    "asymmetric_trapezoid",
+    "fit_asymmetric",
     "fit_event",
+    "fit_stretched_transit",
     "make_window",
 ]
 
@@ -250,6 +253,25 @@ def _asym_trapezoid(t, t1, t_in, t_flat, t_out):
     rise = np.clip(x / np.maximum(t_in, 1e-12), 0.0, 1.0)
     fall = np.clip((t_in + t_flat + t_out - x) / np.maximum(t_out, 1e-12), 0.0, 1.0)
     return np.minimum(rise, fall)
+
+
+def asymmetric_trapezoid(
+    time_days: np.ndarray, *, t1: float, ingress_days: float, flat_days: float,
+    egress_days: float,
+) -> np.ndarray:
+    """Unit-depth asymmetric trapezoid (0 outside, 1 on the flat bottom).
+
+    Parameters
+    ----------
+    time_days : ndarray
+        Times [days].
+    t1 : float
+        First contact [days].
+    ingress_days, flat_days, egress_days : float
+        Durations of the ingress ramp, the flat bottom and the egress ramp [days].
+    """
+    return _asym_trapezoid(np.asarray(time_days, dtype=float), t1, ingress_days, flat_days,
+                           egress_days)
 
 
 def _gaussian(t, t0, sig):
@@ -535,6 +557,70 @@ def _refine(residual, x0, lo, hi, method: str = "fast") -> np.ndarray:
     if method == "scipy":
         return _refine_scipy(residual, x0, lo, hi)
     return _refine_fast(residual, x0, lo, hi)
+
+
+def fit_stretched_transit(
+    win: Window, *, t0: float, t14_days: float, k: float, b: float, method: str = "fast"
+) -> dict[str, float]:
+    """Fit a transit profile whose time axis is stretched independently on each side.
+
+    The limb-darkened profile of the fitted transit (radius ratio ``k``, impact ``b``) keeps its
+    shape, but the time from first contact to its centre (``before_days``) and from its centre
+    to last contact (``after_days``) are free. A symmetric transit gives equal halves whatever
+    the noise does to its ramps, because every in-transit point constrains its half; a dip with a
+    trailing tail gives ``after_days >> before_days``.
+
+    Returns
+    -------
+    dict
+        ``t0`` (centre), ``before_days``, ``after_days``, ``depth``, ``chi2``.
+    """
+    t, y, w = win.t, win.y, win.w
+    sw = np.sqrt(w)
+    k = float(np.clip(k, _BANK_K[0], _BANK_K[-1]))
+    beta = float(np.clip(b / (1.0 + k), 0.0, _BANK_BETA[-1]))
+    row, _ = _transit_row(k, beta)
+
+    def profile(p):
+        dt = t - p[0]
+        x = np.where(dt < 0, 0.5 * dt / p[1], 0.5 * dt / p[2])
+        return np.interp(x, _BANK_X, row, left=0.0, right=0.0)
+
+    def resid(p):
+        u = profile(p)
+        c, a, _ = _linear1(u, y, w)
+        return sw * (y - c * (1.0 - a * u))
+
+    half = 0.5 * t14_days
+    d = win.duration_days
+    # start from the best of a few asymmetric guesses (comet tails need a long after-side)
+    starts = [np.array([t0 + s * half, half * fb, half * fa])
+              for s, fb, fa in ((0.0, 1.0, 1.0), (-0.3, 0.6, 1.6), (0.3, 1.6, 0.6),
+                                (-0.5, 0.4, 3.0))]
+    x0 = min(starts, key=lambda p: float(np.sum(resid(p) ** 2)))
+    lo = np.array([win.t_mid - 1.5 * d, 1e-3 * d, 1e-3 * d])
+    hi = np.array([win.t_mid + 1.5 * d, 4.0 * d, 8.0 * d])
+    p = _refine(resid, x0, lo, hi, method)
+    _, a, chi2 = _linear1(profile(p), y, w)
+    return {"t0": float(p[0]), "before_days": float(p[1]), "after_days": float(p[2]),
+            "depth": float(a), "chi2": float(chi2)}
+
+
+def fit_asymmetric(
+    win: Window, *, t0: float, t14_days: float, method: str = "fast"
+) -> dict[str, float]:
+    """Fit an asymmetric trapezoid (separate ingress and egress) to a binned window.
+
+    A vectorised grid over total duration, ingress share, egress share and first contact around
+    ``t0`` and ``t14_days`` gives the start; a bounded refinement follows.
+
+    Returns
+    -------
+    dict
+        ``t1`` (first contact), ``ingress_days``, ``flat_days``, ``egress_days``, ``depth``,
+        ``chi2``.
+    """
+    return _asymmetric(win, {"t0": t0, "t14": t14_days}, method)
 
 
 def _asymmetric(win: Window, start: dict[str, float], method: str) -> dict[str, float]:

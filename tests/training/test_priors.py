@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
+from features.catalog import fill_markers
 from features.errors import ParameterError
 from training.priors import PRIORS, Prior, PriorTable, priors_markdown
 
@@ -70,9 +71,7 @@ def test_replace_makes_a_new_table():
 
 def test_docs_table_is_generated_from_the_code():
     text = DOCS.read_text()
-    start = text.index("<!-- priors:start -->") + len("<!-- priors:start -->")
-    end = text.index("<!-- priors:end -->")
-    assert text[start:end].strip() == priors_markdown().strip(), (
-        "docs/simulator.md is stale: regenerate the table between the markers from "
-        "training.priors.priors_markdown()"
+    assert text == fill_markers(text, "priors", priors_markdown()), (
+        "docs/simulator.md is stale: regenerate the table between the markers with "
+        "features.catalog.fill_markers(text, 'priors', training.priors.priors_markdown())"
     )
