@@ -29,6 +29,8 @@ bilinear in shape) during the fits.
 
 from __future__ import annotations
 
+import bisect
+import math
 from dataclasses import dataclass, field
 from functools import lru_cache
 
@@ -187,14 +189,16 @@ def _linear(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[np.ndarray, np
     suu = (u * u) @ w
     suy = u @ (w * y)
     det = sw * suu - su * su
-    with np.errstate(divide="ignore", invalid="ignore"):
-        c = (suu * swy - su * suy) / det
-        ca = (su * swy - sw * suy) / det
-        chi2 = swyy - c * swy + ca * suy
-        a = ca / c
-    bad = ~np.isfinite(chi2) | (det <= 0)
+    bad = ~(det > 1e-300 * sw * np.maximum(suu, 1e-300))  # flat profile: no amplitude
+    det = np.where(bad, 1.0, det)
+    c = (suu * swy - su * suy) / det
+    ca = (su * swy - sw * suy) / det
+    chi2 = swyy - c * swy + ca * suy
+    bad |= ~(np.abs(c) > 0)
+    c = np.where(bad, swy / sw, c)
+    a = np.where(bad, 0.0, ca / np.where(bad, 1.0, c))
     chi2 = np.where(bad, swyy - swy * swy / sw, chi2)
-    return np.where(bad, swy / sw, c), np.where(bad, 0.0, a), np.maximum(chi2, 0.0)
+    return c, a, np.maximum(chi2, 0.0)
 
 
 def _linear1(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[float, float, float]:
@@ -285,9 +289,18 @@ def _gaussian(t, t0, sig):
 _BANK_X = np.linspace(-0.55, 0.55, 441)  # time in units of T14, centred on mid-transit
 _BANK_K = np.array([0.01, 0.02, 0.04, 0.07, 0.1, 0.14, 0.2, 0.3, 0.45, 0.7, 1.0, 1.4, 2.0])
 _BANK_BETA = np.array([0.0, 0.25, 0.45, 0.6, 0.72, 0.82, 0.9, 0.95, 0.985])  # b / (1 + k)
-_LOG_BANK_K = np.log(_BANK_K)
-_IDX_K = np.arange(_BANK_K.size, dtype=float)
-_IDX_BETA = np.arange(_BANK_BETA.size, dtype=float)
+_LOG_BANK_K_LIST = [math.log(k) for k in _BANK_K]
+_BANK_BETA_LIST = [float(b) for b in _BANK_BETA]
+
+
+def _fractional_index(value: float, grid: list[float]) -> float:
+    """Position of ``value`` in the increasing ``grid`` as a fractional index (clamped)."""
+    if value <= grid[0]:
+        return 0.0
+    if value >= grid[-1]:
+        return float(len(grid) - 1)
+    i = bisect.bisect_right(grid, value) - 1
+    return i + (value - grid[i]) / (grid[i + 1] - grid[i])
 
 
 @lru_cache(maxsize=1)
@@ -314,8 +327,7 @@ def _transit_bank() -> tuple[np.ndarray, np.ndarray]:
 _COMET_X = np.linspace(-0.6, 14.0, 1461)  # time in units of the crossing time, head mid-chord at 0
 _COMET_R = np.geomspace(0.05, 10.0, 14)  # tail e-folding time over crossing time
 _COMET_B = 0.3
-_LOG_COMET_R = np.log(_COMET_R)
-_IDX_R = np.arange(_COMET_R.size, dtype=float)
+_LOG_COMET_R_LIST = [math.log(r) for r in _COMET_R]
 
 
 @lru_cache(maxsize=1)
@@ -332,19 +344,23 @@ def _comet_bank() -> np.ndarray:
     return out
 
 
+@lru_cache(maxsize=256)
+def _transit_cell(i: int, j: int) -> tuple[np.ndarray, np.ndarray]:
+    """The four bank profiles (4, n_x) and depths (4,) at the corners of cell (i, j)."""
+    u_bank, d_bank = _transit_bank()
+    cells = ((i, j), (i + 1, j), (i, j + 1), (i + 1, j + 1))
+    return (np.stack([u_bank[c] for c in cells]), np.array([d_bank[c] for c in cells]))
+
+
 def _transit_row(k: float, beta: float) -> tuple[np.ndarray, float]:
     """Unit profile on the bank grid and true depth for continuous (k, beta), bilinear."""
-    u_bank, d_bank = _transit_bank()
-    lk = float(np.interp(np.log(k), _LOG_BANK_K, _IDX_K))
-    lb = float(np.interp(beta, _BANK_BETA, _IDX_BETA))
+    lk = _fractional_index(math.log(k), _LOG_BANK_K_LIST)
+    lb = _fractional_index(beta, _BANK_BETA_LIST)
     i, j = min(int(lk), _BANK_K.size - 2), min(int(lb), _BANK_BETA.size - 2)
     fk, fb = lk - i, lb - j
-    w00, w10, w01, w11 = (1 - fk) * (1 - fb), fk * (1 - fb), (1 - fk) * fb, fk * fb
-    row = (w00 * u_bank[i, j] + w10 * u_bank[i + 1, j] + w01 * u_bank[i, j + 1]
-           + w11 * u_bank[i + 1, j + 1])
-    depth = (w00 * d_bank[i, j] + w10 * d_bank[i + 1, j] + w01 * d_bank[i, j + 1]
-             + w11 * d_bank[i + 1, j + 1])
-    return row, float(depth)
+    corners, depths = _transit_cell(i, j)
+    wts = np.array([(1 - fk) * (1 - fb), fk * (1 - fb), (1 - fk) * fb, fk * fb])
+    return wts @ corners, float(wts @ depths)
 
 
 def _transit_profile(t, t0, t14, k, beta):
@@ -355,7 +371,7 @@ def _transit_profile(t, t0, t14, k, beta):
 
 def _comet_row(r: float) -> np.ndarray:
     bank = _comet_bank()
-    lr = float(np.interp(np.log(r), _LOG_COMET_R, _IDX_R))
+    lr = _fractional_index(math.log(r), _LOG_COMET_R_LIST)
     i = min(int(lr), _COMET_R.size - 2)
     f = lr - i
     return (1 - f) * bank[i] + f * bank[i + 1]
@@ -434,7 +450,7 @@ def _fit(name: str, chi2: float, n_params: int, n_bins: int, **params: float) ->
 # the fits
 
 
-def _grid_t0(win: Window, n: int = 13, span: float = 0.35) -> np.ndarray:
+def _grid_t0(win: Window, n: int = 11, span: float = 0.35) -> np.ndarray:
     return win.t_mid + win.duration_days * np.linspace(-span, span, n)
 
 
@@ -452,8 +468,8 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
     k = int(np.argmin(chi))
     out["box"] = _fit("box", chi[k], 4, n, t0=tt0.flat[k], duration_days=dd.flat[k], depth=a[k])
     # symmetric trapezoid (flat fraction > 0) and V (flat fraction 0): t0 x T14 x flat
-    t14s = d * np.geomspace(0.6, 2.5, 10)
-    flats = np.array([0.0, 0.2, 0.4, 0.6, 0.8, 0.9])
+    t14s = d * np.geomspace(0.6, 2.5, 9)
+    flats = np.array([0.0, 0.25, 0.5, 0.7, 0.85])
     g0, g1, g2 = np.meshgrid(t0s, t14s, flats, indexing="ij")
     u = _trapezoid(t[None, :], g0.reshape(-1, 1), g1.reshape(-1, 1), g2.reshape(-1, 1))
     _, a, chi = _linear(u, y, w)
@@ -482,7 +498,7 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
         if mirrored:
             x = -x
         best = (np.inf, 0.0, 0.0, 0.0, 0.0)
-        for r in _COMET_R[::2]:
+        for r in _COMET_R[1::3]:
             u = np.interp(x, _COMET_X, _comet_row(float(r)), left=0.0, right=0.0)
             _, a, chi = _linear(u, y, w)
             chi = np.where(a > 0, chi, np.inf)
@@ -497,40 +513,40 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
     return out, start
 
 
-def _refine_scipy(residual, x0, lo, hi) -> np.ndarray:
+def _refine_scipy(residuals, x0, lo, hi) -> np.ndarray:
     """Reference refinement: scipy's bounded trust-region-reflective least squares."""
     try:
-        return least_squares(residual, x0, bounds=(lo, hi), method="trf", max_nfev=200,
-                             x_scale="jac").x
+        return least_squares(lambda p: residuals(p[None, :])[0], x0, bounds=(lo, hi),
+                             method="trf", max_nfev=200, x_scale="jac").x
     except (ValueError, np.linalg.LinAlgError):
         return x0
 
 
-def _refine_fast(residual, x0, lo, hi, *, max_iter: int = 10, rtol: float = 1e-4) -> np.ndarray:
+def _refine_fast(residuals, x0, lo, hi, *, max_iter: int = 10, rtol: float = 1e-4) -> np.ndarray:
     """Projected Levenberg-Marquardt (Levenberg 1944; Marquardt 1963) with bounds by clipping.
 
-    A small dense solver for 3-5 parameters whose per-call overhead is a few numpy operations;
+    A small dense solver for 2-5 parameters. ``residuals`` takes a batch of parameter vectors
+    (shape (m, n_par)) and returns the weighted residuals of each (shape (m, n_res)), so the
+    finite-difference Jacobian costs one vectorised call per iteration.
     :func:`_refine_scipy` is its slow, obvious twin and the tests check they agree.
     """
     x = x0.copy()
-    r = residual(x)
+    n_par = x.size
+    r = residuals(x[None, :])[0]
     cost = float(r @ r)
     lam = 1e-3
-    span = hi - lo
+    h = 1e-6 * np.maximum(hi - lo, 1e-12)
+    eye = np.eye(n_par)
     for _ in range(max_iter):
-        h = 1e-6 * np.maximum(span, 1e-12)
         # one-sided differences stepping away from the nearer bound
-        h = np.where(x + h > hi, -h, h)
-        jac = np.empty((r.size, x.size))
-        for i in range(x.size):
-            xp = x.copy()
-            xp[i] += h[i]
-            jac[:, i] = (residual(xp) - r) / h[i]
+        hh = np.where(x + h > hi, -h, h)
+        jac = ((residuals(x[None, :] + eye * hh[:, None]) - r[None, :]) / hh[:, None]).T
         a = jac.T @ jac
         g = jac.T @ r
         diag = np.diag(a).copy()
         diag[diag <= 0] = 1e-12
         improved = False
+        gain = 0.0
         for _ in range(6):
             try:
                 step = np.linalg.solve(a + lam * np.diag(diag), -g)
@@ -538,7 +554,7 @@ def _refine_fast(residual, x0, lo, hi, *, max_iter: int = 10, rtol: float = 1e-4
                 lam *= 10.0
                 continue
             xn = np.clip(x + step, lo, hi)
-            rn = residual(xn)
+            rn = residuals(xn[None, :])[0]
             cn = float(rn @ rn)
             if cn < cost:
                 improved = True
@@ -552,11 +568,36 @@ def _refine_fast(residual, x0, lo, hi, *, max_iter: int = 10, rtol: float = 1e-4
     return x
 
 
-def _refine(residual, x0, lo, hi, method: str = "fast") -> np.ndarray:
+def _refine(residuals, x0, lo, hi, method: str = "fast") -> np.ndarray:
     x0 = np.clip(np.asarray(x0, dtype=float), lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
     if method == "scipy":
-        return _refine_scipy(residual, x0, lo, hi)
-    return _refine_fast(residual, x0, lo, hi)
+        return _refine_scipy(residuals, x0, lo, hi)
+    return _refine_fast(residuals, x0, lo, hi)
+
+
+def _weighted_residuals(u: np.ndarray, y: np.ndarray, w: np.ndarray,
+                        sw: np.ndarray) -> np.ndarray:
+    """sqrt(w) (y - c (1 - a u)) with c, a solved for each row of ``u`` (m, n)."""
+    if u.shape[0] == 1:
+        c1, a1, _ = _linear1(u[0], y, w)
+        return (sw * (y - c1 * (1.0 - a1 * u[0])))[None, :]
+    c, a, _ = _linear(u, y, w)
+    return sw * (y - c[:, None] * (1.0 - a[:, None] * u))
+
+
+def _interp_rows(x: np.ndarray, rows: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """Row-wise linear interpolation of ``rows`` (m, n_grid) on a uniform ``grid`` at ``x``
+    (m, n); 0 outside the grid."""
+    n_grid = grid.size
+    pos = (x - grid[0]) * (1.0 / (grid[1] - grid[0]))
+    inside = (pos >= 0) & (pos <= n_grid - 1)
+    i = np.clip(pos.astype(np.intp), 0, n_grid - 2)
+    frac = pos - i
+    flat = np.ascontiguousarray(rows).ravel()
+    idx = i + (np.arange(rows.shape[0]) * n_grid)[:, None]
+    lo = flat.take(idx)
+    v = lo + (flat.take(idx + 1) - lo) * frac
+    return np.where(inside, v, 0.0)
 
 
 def fit_stretched_transit(
@@ -581,15 +622,15 @@ def fit_stretched_transit(
     beta = float(np.clip(b / (1.0 + k), 0.0, _BANK_BETA[-1]))
     row, _ = _transit_row(k, beta)
 
-    def profile(p):
-        dt = t - p[0]
-        x = np.where(dt < 0, 0.5 * dt / p[1], 0.5 * dt / p[2])
-        return np.interp(x, _BANK_X, row, left=0.0, right=0.0)
+    rows = row[None, :]
+
+    def profile(p):  # p: (m, 3)
+        dt = t[None, :] - p[:, :1]
+        x = np.where(dt < 0, 0.5 * dt / p[:, 1:2], 0.5 * dt / p[:, 2:3])
+        return _interp_rows(x, np.broadcast_to(rows, (p.shape[0], row.size)), _BANK_X)
 
     def resid(p):
-        u = profile(p)
-        c, a, _ = _linear1(u, y, w)
-        return sw * (y - c * (1.0 - a * u))
+        return _weighted_residuals(profile(p), y, w, sw)
 
     half = 0.5 * t14_days
     d = win.duration_days
@@ -597,11 +638,11 @@ def fit_stretched_transit(
     starts = [np.array([t0 + s * half, half * fb, half * fa])
               for s, fb, fa in ((0.0, 1.0, 1.0), (-0.3, 0.6, 1.6), (0.3, 1.6, 0.6),
                                 (-0.5, 0.4, 3.0))]
-    x0 = min(starts, key=lambda p: float(np.sum(resid(p) ** 2)))
+    x0 = starts[int(np.argmin(np.sum(resid(np.stack(starts)) ** 2, axis=1)))]
     lo = np.array([win.t_mid - 1.5 * d, 1e-3 * d, 1e-3 * d])
     hi = np.array([win.t_mid + 1.5 * d, 4.0 * d, 8.0 * d])
     p = _refine(resid, x0, lo, hi, method)
-    _, a, chi2 = _linear1(profile(p), y, w)
+    _, a, chi2 = _linear1(profile(p[None, :])[0], y, w)
     return {"t0": float(p[0]), "before_days": float(p[1]), "after_days": float(p[2]),
             "depth": float(a), "chi2": float(chi2)}
 
@@ -630,9 +671,9 @@ def _asymmetric(win: Window, start: dict[str, float], method: str) -> dict[str, 
     d = win.duration_days
     t14 = start["t14"]
     # grid: total duration x ingress share x egress share x position of first contact
-    totals = t14 * np.array([0.7, 1.0, 1.4, 2.0])
-    shares = np.array([0.03, 0.1, 0.25, 0.45, 0.7, 0.9])
-    starts = start["t0"] + t14 * np.linspace(-1.0, 0.2, 9)
+    totals = t14 * np.array([0.8, 1.2, 1.8])
+    shares = np.array([0.04, 0.15, 0.35, 0.6, 0.9])
+    starts = start["t0"] + t14 * np.linspace(-0.9, 0.1, 7)
     g_tot, g_in, g_out, g_t1 = np.meshgrid(totals, shares, shares, starts, indexing="ij")
     ok = (g_in + g_out) <= 1.0
     g_tot, g_in, g_out, g_t1 = g_tot[ok], g_in[ok], g_out[ok], g_t1[ok]
@@ -647,10 +688,9 @@ def _asymmetric(win: Window, start: dict[str, float], method: str) -> dict[str, 
     lo = np.array([t[0] - d, 1e-3 * d, 0.0, 1e-3 * d])
     hi = np.array([win.t_mid + d, 6.0 * d, 4.0 * d, 8.0 * d])
 
-    def resid(p):
-        u = _asym_trapezoid(t, *p)
-        c, a, _ = _linear1(u, y, w)
-        return sw * (y - c * (1.0 - a * u))
+    def resid(p):  # p: (m, 4)
+        u = _asym_trapezoid(t[None, :], p[:, :1], p[:, 1:2], p[:, 2:3], p[:, 3:4])
+        return _weighted_residuals(u, y, w, sw)
 
     p = _refine(resid, x0, lo, hi, method)
     _, a, chi2 = _linear1(_asym_trapezoid(t, *p), y, w)
@@ -679,33 +719,43 @@ def _fit_transit(win: Window, start: dict[str, float], *, eclipse: bool,
     k_max = 2.0 if eclipse else _TRANSIT_K_MAX
     depth0 = max(win.depth, 1e-6)
     k0 = float(np.clip(np.sqrt(depth0 / 1.1), 0.011, k_max * 0.99))
-    best = None
+    # vectorised grid over impact parameter x duration, started at the trapezoid's centre
+    rows, deps, ks, betas = [], [], [], []
     for beta in (0.0, 0.45, 0.72, 0.9, 0.985):
         kk = k0 if eclipse or beta < 0.8 else min(k0 * 1.5, k_max * 0.99)
-        for t14 in start["t14"] * np.array([0.8, 1.0, 1.25]):
-            u, dep = _transit_profile(t, start["t0"], t14, kk, beta)
-            if eclipse:
-                _, _, chi = _linear(u[None, :], y, w)
-            else:
-                _, chi = _linear_tied(u[None, :], dep, y, w)
-            if best is None or chi[0] < best[0]:
-                best = (float(chi[0]), t14, kk, beta)
+        row, dep = _transit_row(kk, beta)
+        rows.append(row)
+        deps.append(dep)
+        ks.append(kk)
+        betas.append(beta)
+    t14s = start["t14"] * np.array([0.8, 1.0, 1.25])
+    x = (t[None, :] - start["t0"]) / t14s[:, None]  # (3, n)
+    u = np.stack([np.interp(x, _BANK_X, row, left=0.0, right=0.0) for row in rows])  # (5, 3, n)
+    u = u.reshape(-1, t.size)
+    if eclipse:
+        _, _, chi = _linear(u, y, w)
+    else:
+        _, chi = _linear_tied(u, np.repeat(deps, t14s.size), y, w)
+    kbest = int(np.argmin(chi))
+    i_beta, i_t14 = divmod(kbest, t14s.size)
+    best = (float(chi[kbest]), float(t14s[i_t14]), ks[i_beta], betas[i_beta])
     _, t14_0, k_0, beta_0 = best
     lo = np.array([win.t_mid - d, 0.2 * d, 0.01, 0.0])
     hi = np.array([win.t_mid + d, 4.0 * d, k_max, 0.985])
 
-    def model(p):
-        u, dep = _transit_profile(t, p[0], p[1], p[2], p[3])
+    def resid(p):  # p: (m, 4) = t0, t14, k, beta
+        rows_dep = [_transit_row(float(q[2]), float(q[3])) for q in p]
+        rows = np.stack([rd[0] for rd in rows_dep])
+        u = _interp_rows((t[None, :] - p[:, :1]) / p[:, 1:2], rows, _BANK_X)
         if eclipse:
-            c, a, _ = _linear1(u, y, w)
-            return c * (1.0 - a * u)
-        g = 1.0 - dep * u
+            return _weighted_residuals(u, y, w, sw)
+        g = 1.0 - np.array([rd[1] for rd in rows_dep])[:, None] * u
         wg = w * g
-        return (wg @ y) / (wg @ g) * g
+        c = np.sum(wg * y, axis=1) / np.sum(wg * g, axis=1)
+        return sw * (y - c[:, None] * g)
 
-    p = _refine(lambda q: sw * (y - model(q)), [start["t0"], t14_0, k_0, beta_0], lo, hi,
-                method)
-    chi2 = float(w @ (y - model(p)) ** 2)
+    p = _refine(resid, [start["t0"], t14_0, k_0, beta_0], lo, hi, method)
+    chi2 = float(np.sum(resid(p[None, :])[0] ** 2))
     u, dep = _transit_profile(t, *p)
     params = {"t0": p[0], "t14_days": p[1], "k": p[2], "b": p[3] * (1.0 + p[2])}
     if eclipse:
@@ -723,18 +773,20 @@ def _fit_comet(win: Window, tmpl: FamilyFit, method: str) -> FamilyFit:
     t, y, w, n = win.t, win.y, win.w, win.n_bins
     sw = np.sqrt(w)
     d = win.duration_days
-    p0 = [tmpl.params["t0"], tmpl.params["crossing_days"], tmpl.params["tail_ratio"]]
-    lo = np.array([win.t_mid - 1.5 * d, 0.02 * d, _COMET_R[0]])
-    hi = np.array([win.t_mid + d, 3.0 * d, _COMET_R[-1]])
+    # the tail ratio is refined in log space (it spans two decades)
+    p0 = [tmpl.params["t0"], tmpl.params["crossing_days"], math.log(tmpl.params["tail_ratio"])]
+    lo = np.array([win.t_mid - 1.5 * d, 0.02 * d, math.log(_COMET_R[0])])
+    hi = np.array([win.t_mid + d, 3.0 * d, math.log(_COMET_R[-1])])
 
-    def model(p):
-        u = _comet_profile(t, p[0], p[1], p[2])
-        c, a, _ = _linear1(u, y, w)
-        return c * (1.0 - abs(a) * u), a
+    def resid(p):  # p: (m, 3) = t0, crossing, log tail ratio
+        rows = np.stack([_comet_row(math.exp(q[2])) for q in p])
+        u = _interp_rows((t[None, :] - p[:, :1]) / p[:, 1:2], rows, _COMET_X)
+        return _weighted_residuals(u, y, w, sw)
 
-    p = _refine(lambda q: sw * (y - model(q)[0]), p0, lo, hi, method)
-    m, a = model(p)
-    chi2 = float(w @ (y - m) ** 2) + _flat_chi2(win.sec_y, win.sec_w)
+    p = _refine(resid, p0, lo, hi, method)
+    p[2] = math.exp(p[2])
+    _, a, chi2 = _linear1(_comet_profile(t, p[0], p[1], p[2]), y, w)
+    chi2 = chi2 + _flat_chi2(win.sec_y, win.sec_w)
     return _fit("comet", chi2, 5, n, t0=p[0], crossing_days=p[1], tail_ratio=p[2],
                 tail_days=p[1] * p[2], depth=abs(float(a)))
 
@@ -776,9 +828,8 @@ def _fit_artefact(win: Window, box: FamilyFit, method: str) -> FamilyFit:
     edge = float(np.median(np.diff(t))) if t.size > 1 else win.duration_days
     d = win.duration_days
 
-    def resid(p):
-        c1, a1, _ = _linear1(_box_binned(t, p[0], p[1], edge), y, w)
-        return sw * (y - c1 * (1.0 - a1 * _box_binned(t, p[0], p[1], edge)))
+    def resid(p):  # p: (m, 2) = t0, duration
+        return _weighted_residuals(_box_binned(t[None, :], p[:, :1], p[:, 1:2], edge), y, w, sw)
 
     x0 = [box.params["t0"], box.params["duration_days"]]
     p = _refine(resid, x0, np.array([win.t_mid - d, 0.5 * edge]),
@@ -789,7 +840,9 @@ def _fit_artefact(win: Window, box: FamilyFit, method: str) -> FamilyFit:
     return step if step.bic < boxfit.bic else boxfit
 
 
-def fit_event(win: Window, *, method: str = "fast") -> tuple[EventFits, dict[str, float]]:
+def fit_event(
+    win: Window, *, method: str = "fast", with_asymmetric: bool = True
+) -> tuple[EventFits, dict[str, float] | None]:
     """Fit every family and template to one binned event window.
 
     Parameters
@@ -804,8 +857,9 @@ def fit_event(win: Window, *, method: str = "fast") -> tuple[EventFits, dict[str
     -------
     fits : EventFits
         Families (with BIC) and templates (with chi-square).
-    asym : dict
-        The asymmetric trapezoid: ``ingress_days``, ``flat_days``, ``egress_days``, ``depth``.
+    asym : dict or None
+        The asymmetric trapezoid (:func:`fit_asymmetric`) on this window, when
+        ``with_asymmetric``.
 
     Notes
     -----
@@ -817,7 +871,7 @@ def fit_event(win: Window, *, method: str = "fast") -> tuple[EventFits, dict[str
     if method not in ("fast", "scipy"):
         raise ParameterError("invalid_parameter",
                              f"method must be 'fast' or 'scipy', got {method!r}")
-    asym = _asymmetric(win, start, method)
+    asym = _asymmetric(win, start, method) if with_asymmetric else None
     families = {
         "transit": _fit_transit(win, start, eclipse=False, method=method),
         "eclipse": _fit_transit(win, start, eclipse=True, method=method),

@@ -14,7 +14,7 @@ from features.catalog import (
     fill_markers,
     flags_markdown,
 )
-from features.extract import FLAGS
+from features.pipeline import FLAGS
 
 DOCS = Path(__file__).resolve().parents[2] / "docs" / "features.md"
 

@@ -17,7 +17,7 @@ from features import shapes
 from features.catalog import FEATURE_NAMES, FEATURE_VERSION
 from features.errors import DipshapeError
 from features.events import Ephemeris
-from features.extract import FLAGS, extract
+from features.pipeline import FLAGS, extract
 from features.segment import make_segment
 
 

@@ -271,20 +271,24 @@ def _shape_features(v: dict[str, float], t, fd, sigma, t_mid, duration, depth, c
                     method) -> tuple[EventFits, dict[str, float]]:
     win = make_window(t, fd, np.full(t.size, sigma), t_mid=t_mid, duration_days=duration,
                       depth=depth, cadence_days=cadence, period_days=period)
-    fits, asym = fit_event(win, method=method)
-    total = asym["ingress_days"] + asym["flat_days"] + asym["egress_days"]
-    # ingress and egress need finer bins than the wide window: refit on a zoom of the dip
-    centre = asym["t1"] + 0.5 * total
-    zoom = make_window(t, fd, np.full(t.size, sigma), t_mid=centre, duration_days=total,
+    fits, _ = fit_event(win, method=method, with_asymmetric=False)
+    # ingress and egress need finer bins than the wide window: fit them on a zoom of the dip
+    # centred on the best symmetric trapezoid (widened for a comet's tail)
+    trap = fits.templates["trapezoid"].params
+    centre, span = trap["t0"], trap["t14_days"]
+    if fits.templates["comet"].chi2 < fits.templates["trapezoid"].chi2:
+        cm = fits.templates["comet"].params
+        span = max(span, cm["crossing_days"] * (1.0 + 3.0 * cm["tail_ratio"]))
+    zoom = make_window(t, fd, np.full(t.size, sigma), t_mid=centre, duration_days=span,
                        depth=depth, cadence_days=cadence, period_days=period, before=1.0,
                        after=1.5, max_bins=150)
-    if zoom.t.size >= 10:
-        zoomed = fit_asymmetric(zoom, t0=centre, t14_days=total, method=method)
-        asym = {**zoomed, "chi2": asym["chi2"]}
-        total = asym["ingress_days"] + asym["flat_days"] + asym["egress_days"]
+    if zoom.t.size < 10:
+        zoom = win
+    asym = fit_asymmetric(zoom, t0=centre, t14_days=span, method=method)
+    total = asym["ingress_days"] + asym["flat_days"] + asym["egress_days"]
     tr = fits.families["transit"].params
-    halves = fit_stretched_transit(zoom if zoom.t.size >= 10 else win, t0=centre,
-                                   t14_days=total, k=tr["k"], b=tr["b"], method=method)
+    halves = fit_stretched_transit(zoom, t0=asym["t1"] + 0.5 * total, t14_days=total,
+                                   k=tr["k"], b=tr["b"], method=method)
     v.update(ingress_egress_ratio=halves["before_days"] / halves["after_days"],
              ingress_days=asym["ingress_days"], egress_days=asym["egress_days"],
              flat_bottom_fraction=asym["flat_days"] / total if total > 0 else _nan())
