@@ -15,7 +15,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from features.errors import DipshapeError
-from features.extract import extract
+from features.pipeline import extract
 from features.segment import MIN_POINTS, make_segment
 from training.simulate import simulate_dataset
 
