@@ -69,9 +69,11 @@ def plot_gallery(
             seg = chosen[col]
             lo, hi = _zoom_window(seg)
             sel = (seg.time >= lo) & (seg.time <= hi)
+            # both on the same scale: each divided by its own median over the whole segment
             flux = seg.flux / np.nanmedian(seg.flux)
+            model = seg.model / np.median(seg.model)
             ax.plot(seg.time[sel] - lo, flux[sel], ".", ms=1.5, color="0.45")
-            ax.plot(seg.time[sel] - lo, seg.model[sel], "-", lw=1.0, color="C3")
+            ax.plot(seg.time[sel] - lo, model[sel], "-", lw=1.0, color="C3")
             ax.set_title(f"{label} / {seg.subtype}\nSNR {seg.snr:.0f}, "
                          f"{seg.truth['cadence_min']:g} min", fontsize=8)
             ax.tick_params(labelsize=7)
