@@ -20,6 +20,7 @@ from sklearn.calibration import CalibratedClassifierCV
 from sklearn.datasets import make_classification
 from sklearn.ensemble import HistGradientBoostingClassifier
 from sklearn.frozen import FrozenEstimator
+from threadpoolctl import ThreadpoolController, threadpool_info
 
 from features.catalog import FEATURE_VERSION
 from features.errors import ModelError, ParameterError
@@ -28,6 +29,7 @@ from training.registry import (
     ACTIVE_FILE,
     MODEL_FILE,
     TRUSTED_TYPES,
+    LoadedModel,
     activate,
     active_version,
     list_models,
@@ -51,7 +53,7 @@ def _data(n_classes: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _calibrated(X, labels, method: str) -> CalibratedClassifierCV:
-    hgb = HistGradientBoostingClassifier(max_iter=10, max_leaf_nodes=7, random_state=0)
+    hgb = HistGradientBoostingClassifier(max_iter=5, max_leaf_nodes=7, random_state=0)
     hgb.fit(X[:300], labels[:300])
     return CalibratedClassifierCV(FrozenEstimator(hgb), method=method).fit(X[300:], labels[300:])
 
@@ -210,6 +212,14 @@ def _break_card_json(folder: Path) -> None:
     (folder / "card.json").write_text("{not json")
 
 
+def _symlink_out_of_the_folder(folder: Path) -> None:
+    # same bytes, so the hash matches: only the location gives it away
+    outside = folder.parent.parent / "elsewhere.html"
+    outside.write_bytes((folder / "report" / "report.html").read_bytes())
+    (folder / "report" / "report.html").unlink()
+    (folder / "report" / "report.html").symlink_to(outside)
+
+
 def _card_from_the_future(folder: Path) -> None:
     _rewrite_card(folder, lambda c: c.update(card_version="99"))
 
@@ -223,17 +233,28 @@ def _card_from_the_future(folder: Path) -> None:
         (_add_unlisted, "model_integrity", r"not listed in its card: \['notes\.txt'\]"),
         (_drop_model_from_card, "model_integrity", r"does not list model\.skops"),
         (_card_lies_about_classes, "model_integrity", r"its card says"),
+        (_symlink_out_of_the_folder, "model_integrity", r"report\.html points outside"),
         (_break_card_json, "invalid_card", r"card\.json cannot be read"),
         (_card_from_the_future, "invalid_card", r"card_version '99'"),
     ],
 )
 def test_damaged_versions_are_refused(tmp_path, five, damage, code, match):
     model, _ = five
-    _save(tmp_path, model, extra_files={"report/report.html": b"<html></html>"})
-    damage(tmp_path / "v1")
+    root = tmp_path / "registry"
+    _save(root, model, extra_files={"report/report.html": b"<html></html>"})
+    damage(root / "v1")
     with pytest.raises(ModelError, match=match) as info:
-        load_model(tmp_path, "v1", expected_feature_version=FEATURE_VERSION)
+        load_model(root, "v1", expected_feature_version=FEATURE_VERSION)
     assert info.value.code == code
+
+
+def test_a_version_folder_linked_from_outside_the_root_is_refused(tmp_path, five):
+    model, _ = five
+    _save(tmp_path / "other", model)
+    (tmp_path / "registry").mkdir()
+    (tmp_path / "registry" / "v1").symlink_to(tmp_path / "other" / "v1")
+    with pytest.raises(ModelError, match="points outside the registry"):
+        load_model(tmp_path / "registry", "v1", expected_feature_version=FEATURE_VERSION)
 
 
 class _Sneaky:
@@ -415,3 +436,31 @@ def test_prediction_refuses_the_wrong_shape(loaded_five, X, code, match):
     with pytest.raises(ParameterError, match=match) as info:
         loaded_five.predict_proba(X)
     assert info.value.code == code
+
+
+class _ThreadSpy:
+    """Records the native thread-pool sizes seen while predicting."""
+
+    classes_ = np.array(["a", "b"])
+
+    def __init__(self) -> None:
+        self.seen: list[list[int]] = []
+
+    def predict_proba(self, X):
+        self.seen.append([pool["num_threads"] for pool in threadpool_info()])
+        return np.tile([0.25, 0.75], (len(X), 1))
+
+
+def test_prediction_runs_single_threaded_and_restores_the_pools(loaded_five):
+    # reference: threadpoolctl.threadpool_info, read inside and after the call
+    spy = _ThreadSpy()
+    model = LoadedModel(card=loaded_five.card, estimator=spy, sha256="0" * 64,
+                        column_order=(1, 0), thread_control=ThreadpoolController())
+    with ThreadpoolController().limit(limits=2):  # so that 1 inside is a change
+        before = [pool["num_threads"] for pool in threadpool_info()]
+        proba = model.predict_proba(np.zeros((3, N_FEATURES)))
+        after = [pool["num_threads"] for pool in threadpool_info()]
+    assert before and all(n == 2 for n in before)
+    assert spy.seen and all(n == 1 for n in spy.seen[0])
+    assert after == before
+    np.testing.assert_array_equal(proba, np.tile([0.75, 0.25], (3, 1)))  # columns reordered
