@@ -11,14 +11,20 @@ part of the feature extraction: about 3 ms and 20 ms.
 
 from __future__ import annotations
 
-import argparse
-import time
+import sys
+from pathlib import Path
 
-import numpy as np
-from threadpoolctl import threadpool_limits
+# bench/features.py is named like the package: keep this folder off the import path
+sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != Path(__file__).parent.resolve()]
 
-from features.detrend import detrend
-from features.events import estimate_period, search_dips
+import argparse  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+from threadpoolctl import threadpool_limits  # noqa: E402
+
+from features.detrend import detrend  # noqa: E402
+from features.events import estimate_period, search_dips  # noqa: E402
 
 CADENCE_DAYS = 2.0 / 1440.0
 TARGET_MS = {2000: 3.0, 20000: 20.0}

@@ -927,8 +927,9 @@ def detrend(
     Raises
     ------
     SegmentError
-        Bad arrays (codes as in :func:`robust_baseline`, plus ``non_finite_flux_err`` and
-        ``non_positive_flux_err``).
+        Bad arrays (codes as in :func:`robust_baseline`, plus ``non_finite_flux_err``,
+        ``non_positive_flux_err``, and ``constant_flux`` when the flux does not vary and no
+        flux_err is given).
     ParameterError
         ``non_positive_parameter``, ``non_finite_parameter``, ``window_too_short`` (window_factor
         < 3), ``invalid_parameter`` (n_iter).
@@ -1045,6 +1046,8 @@ def detrend(
         sigma = float(np.std(resid)) if resid.size > 1 else math.nan
         if not sigma > 0.0 and err is not None:
             sigma = float(np.median(err[ok] / baseline[ok]))
+        if not sigma > 0.0:
+            raise SegmentError("constant_flux", "the detrended flux does not vary at all")
     beta = _red_noise_beta(t[out], resid, None, cadence)
     for arr in (detrended, baseline, dip):
         arr.setflags(write=False)

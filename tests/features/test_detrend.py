@@ -324,6 +324,7 @@ _E = np.full(100, 1e-3)
         ({"flux_err": np.r_[_E[:99], 0.0]}, SegmentError, "non_positive_flux_err"),
         ({"flux_err": np.r_[_E[:99], np.inf]}, SegmentError, "non_finite_flux_err"),
         ({"flux": np.ones((10, 10))}, SegmentError, "invalid_shape"),
+        ({"flux": np.ones(100), "flux_err": None}, SegmentError, "constant_flux"),
     ],
 )
 def test_detrend_rejects_bad_input(kwargs, error, code):
