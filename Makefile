@@ -32,7 +32,7 @@ lint: $(STAMP)
 
 bench: $(STAMP)
 	$(PY) bench/simulate.py
-	@for f in bench/detect.py bench/features.py; do \
+	@for f in bench/detect.py bench/features.py bench/score.py; do \
 		if [ -f $$f ]; then $(PY) $$f; fi; \
 	done
 

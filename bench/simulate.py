@@ -8,13 +8,19 @@ default observing priors (mixed lengths), measured in this run.
 
 from __future__ import annotations
 
-import argparse
-import time
+import sys
+from pathlib import Path
 
-from threadpoolctl import threadpool_limits
+# bench/features.py is named like the package: keep this folder off the import path
+sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != Path(__file__).parent.resolve()]
 
-from training.classes import CLASSES
-from training.simulate import simulate_dataset
+import argparse  # noqa: E402
+import time  # noqa: E402
+
+from threadpoolctl import threadpool_limits  # noqa: E402
+
+from training.classes import CLASSES  # noqa: E402
+from training.simulate import simulate_dataset  # noqa: E402
 
 N_POINTS = 2000
 CADENCE_MIN = 2.0

@@ -462,7 +462,11 @@ def _likelihood_mean(snr: NDArray[np.float64], i: int) -> int:
     """Index nearest the likelihood-weighted mean centre, weights exp((SNR^2 - SNR_max^2)/2)."""
     good = np.isfinite(snr)
     w = np.zeros(snr.size)
-    w[good] = np.exp(0.5 * (snr[good] ** 2 - snr[i] ** 2))
+    # only dips carry likelihood: negative SNR (a bump) gets the weight of SNR 0
+    pos = np.clip(snr[good], 0.0, None)
+    w[good] = np.exp(0.5 * (pos**2 - max(float(snr[i]), 0.0) ** 2))
+    if not w.sum() > 0:
+        return i
     mean = float(np.sum(w * np.arange(snr.size)) / np.sum(w))
     return round(mean)
 
