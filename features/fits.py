@@ -490,9 +490,9 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
     out["gaussian"] = _fit("gaussian", chi[k], 4, n, t0=g0.flat[k], sigma_days=g1.flat[k],
                            depth=a[k])
     # comet and mirrored comet on a grid of crossing time x tail ratio x head time
-    crosses = d * np.array([0.15, 0.3, 0.5, 0.8])
+    crosses = d * np.array([0.15, 0.35, 0.7])
     for mirrored in (False, True):
-        shift = d * (np.linspace(-0.2, 0.5, 8) if mirrored else np.linspace(-0.5, 0.2, 8))
+        shift = d * (np.linspace(-0.2, 0.5, 7) if mirrored else np.linspace(-0.5, 0.2, 7))
         g0, g1 = np.meshgrid(win.t_mid + shift, crosses, indexing="ij")
         x = (t[None, :] - g0.reshape(-1, 1)) / g1.reshape(-1, 1)
         if mirrored:
@@ -522,7 +522,7 @@ def _refine_scipy(residuals, x0, lo, hi) -> np.ndarray:
         return x0
 
 
-def _refine_fast(residuals, x0, lo, hi, *, max_iter: int = 10, rtol: float = 1e-4) -> np.ndarray:
+def _refine_fast(residuals, x0, lo, hi, *, max_iter: int = 6, rtol: float = 1e-3) -> np.ndarray:
     """Projected Levenberg-Marquardt (Levenberg 1944; Marquardt 1963) with bounds by clipping.
 
     A small dense solver for 2-5 parameters. ``residuals`` takes a batch of parameter vectors
@@ -568,11 +568,11 @@ def _refine_fast(residuals, x0, lo, hi, *, max_iter: int = 10, rtol: float = 1e-
     return x
 
 
-def _refine(residuals, x0, lo, hi, method: str = "fast") -> np.ndarray:
+def _refine(residuals, x0, lo, hi, method: str = "fast", max_iter: int = 6) -> np.ndarray:
     x0 = np.clip(np.asarray(x0, dtype=float), lo + 1e-9 * (hi - lo), hi - 1e-9 * (hi - lo))
     if method == "scipy":
         return _refine_scipy(residuals, x0, lo, hi)
-    return _refine_fast(residuals, x0, lo, hi)
+    return _refine_fast(residuals, x0, lo, hi, max_iter=max_iter)
 
 
 def _weighted_residuals(u: np.ndarray, y: np.ndarray, w: np.ndarray,
@@ -672,7 +672,7 @@ def _asymmetric(win: Window, start: dict[str, float], method: str) -> dict[str, 
     t14 = start["t14"]
     # grid: total duration x ingress share x egress share x position of first contact
     totals = t14 * np.array([0.8, 1.2, 1.8])
-    shares = np.array([0.04, 0.15, 0.35, 0.6, 0.9])
+    shares = np.array([0.05, 0.2, 0.45, 0.8])
     starts = start["t0"] + t14 * np.linspace(-0.9, 0.1, 7)
     g_tot, g_in, g_out, g_t1 = np.meshgrid(totals, shares, shares, starts, indexing="ij")
     ok = (g_in + g_out) <= 1.0
@@ -783,7 +783,7 @@ def _fit_comet(win: Window, tmpl: FamilyFit, method: str) -> FamilyFit:
         u = _interp_rows((t[None, :] - p[:, :1]) / p[:, 1:2], rows, _COMET_X)
         return _weighted_residuals(u, y, w, sw)
 
-    p = _refine(resid, p0, lo, hi, method)
+    p = _refine(resid, p0, lo, hi, method, max_iter=12)  # the tail converges slowly
     p[2] = math.exp(p[2])
     _, a, chi2 = _linear1(_comet_profile(t, p[0], p[1], p[2]), y, w)
     chi2 = chi2 + _flat_chi2(win.sec_y, win.sec_w)
