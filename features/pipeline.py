@@ -55,7 +55,7 @@ __all__ = ["FLAGS", "Features", "extract"]
 FLAGS: dict[str, str] = {
     "no_significant_dip": "no dip above the detection threshold: shape features are NaN",
     "low_snr": "the strongest dip has SNR < 10: shape features are uncertain",
-    "few_points_in_event": "fewer than 10 points inside the event: shape features are NaN",
+    "few_points_in_event": "fewer than 6 points inside the event: shape features are NaN",
     "single_event": "only one event: odd/even and depth-consistency features are NaN",
     "not_periodic": "no period found or supplied: odd/even and secondary features are NaN",
     "ephemeris_supplied": "the period, epoch and duration were supplied, not searched",
@@ -67,7 +67,7 @@ FLAGS: dict[str, str] = {
 """Every flag :func:`extract` can raise, with what it means."""
 
 _LOW_SNR = 10.0
-_MIN_EVENT_POINTS = 10
+_MIN_EVENT_POINTS = 6
 
 
 @dataclass(frozen=True)
