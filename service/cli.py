@@ -93,7 +93,11 @@ def demo(
         "demo_out"),
     seed: Annotated[int, typer.Option("--seed")] = 7,
 ) -> None:
-    """Show the simulator at work: a few segments of each class and a gallery PNG.
+    """Simulate segments of each class, measure their shape, and draw them.
+
+    Until the classifier lands this shows the simulator and the feature extractor at work: the
+    true class, and what the shape measurements say (the best-fitting family by BIC, skewness,
+    ingress/egress ratio, odd/even), plus a gallery PNG.
 
     Example:
 
@@ -102,23 +106,31 @@ def demo(
     from rich.console import Console
     from rich.table import Table
 
+    from features.pipeline import extract
+    from features.segment import make_segment
     from training.gallery import plot_gallery
     from training.simulate import simulate_dataset
 
     try:
         segments = simulate_dataset(20, seed=seed, id_prefix="LS-demo-")
         png = plot_gallery(segments, out / "simulated_examples.png")
+        measured = [extract(make_segment(s.time, s.flux, s.flux_err, id=s.id)) for s in segments]
     except DipshapeError as err:
         raise _fail(err) from err
-    table = Table(title="Simulated segments of the (fictional) Lumen Survey")
-    for col in ("id", "class", "subtype", "points", "cadence [min]", "depth [ppm]", "SNR",
-                "events"):
+    table = Table(title="Simulated segments of the (fictional) Lumen Survey, measured")
+    for col in ("id", "true class", "subtype", "SNR", "events", "best family (BIC)", "skewness",
+                "ingress/egress", "odd/even [sigma]", "flags"):
         table.add_column(col)
-    for s in segments:
-        t = s.truth
-        table.add_row(s.id, s.label, s.subtype, str(t["n_points"]), f"{t['cadence_min']:g}",
-                      f"{t['depth'] * 1e6:.0f}", f"{t['snr']:.1f}", str(t["n_events"]))
-    console = Console()
+
+    def num(x: float) -> str:
+        return "-" if x != x else f"{x:.2f}"
+
+    for s, f in zip(segments, measured, strict=True):
+        table.add_row(s.id, s.label, s.subtype, f"{s.snr:.0f}",
+                      f"{f['n_events']:.0f}", f.fits.best_family if f.fits else "-",
+                      num(f["skewness"]), num(f["ingress_egress_ratio"]),
+                      num(f["odd_even_sigma"]), ", ".join(f.flags))
+    console = Console(width=max(Console().width, 150))
     console.print(table)
     console.print(f"gallery written to {png}")
     console.print(CAUTION)
