@@ -46,6 +46,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from features.errors import ParameterError, SegmentError
+from features.orbits import _positive
 
 __all__ = [
     "Detrended",
@@ -177,20 +178,6 @@ def _check_mask(mask: ArrayLike | None, n: int) -> NDArray[np.bool_]:
     if m.ndim != 1 or m.size != n:
         raise SegmentError("length_mismatch", f"mask has shape {m.shape}; expected ({n},)")
     return m
-
-
-def _positive(name: str, value: float) -> float:
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ParameterError(
-            "non_finite_parameter", f"{name} must be a finite real number, got {value!r}"
-        ) from None
-    if not math.isfinite(v):
-        raise ParameterError("non_finite_parameter", f"{name} must be finite, got {value!r}")
-    if v <= 0.0:
-        raise ParameterError("non_positive_parameter", f"{name} must be > 0, got {v!r}")
-    return v
 
 
 def _median(x: NDArray[np.float64]) -> float:
