@@ -153,8 +153,9 @@ def test_odd_even_flags_a_binary_with_alternating_depths_at_snr_30():
     depth = 1 - clean.min()
     n_one = np.count_nonzero(np.abs(t - 0.7) < 0.05)
     sigma = depth * np.sqrt(n_one) / 30
-    feats = extract(_segment(t, clean, sigma, rng))
-    assert abs(feats["odd_even_sigma"]) > 5
+    # expected ~7 for a perfectly matched filter (0.2 x 30 / sqrt(2/3)); measured median ~6
+    stats = [abs(extract(_segment(t, clean, sigma, rng))["odd_even_sigma"]) for _ in range(10)]
+    assert np.median(stats) > 5
 
 
 def test_secondary_eclipse_found_for_a_binary_absent_for_a_planet():
