@@ -12,8 +12,8 @@ from typing import Annotated
 
 import typer
 
-from features.errors import DipshapeError
-from service.errors import cli_exit_code, cli_message
+from features.errors import DipshapeError, ParameterError
+from service.errors import EXIT_FAILURE, cli_exit_code, cli_message
 
 __all__ = ["app", "main"]
 
@@ -134,6 +134,119 @@ def demo(
     console.print(table)
     console.print(f"gallery written to {png}")
     console.print(CAUTION)
+
+
+@app.command()
+def score(
+    paths: Annotated[list[Path], typer.Argument(
+        metavar="PATH", help="Light-curve files (CSV, JSON, FITS, Parquet) or folders of them.",
+        show_default=False)],
+    out: Annotated[Path | None, typer.Option(
+        "--out", "-o", help="Write the JSON lines to this file (default: standard output).",
+        show_default=False)] = None,
+    model_version: Annotated[str | None, typer.Option(
+        "--model", "-m", metavar="VERSION",
+        help="Model version to score with (default: the registry's active version).",
+        show_default=False)] = None,
+    registry: Annotated[Path | None, typer.Option(
+        "--registry", metavar="DIR",
+        help="Model registry folder (default: ./models when that folder exists, else the "
+        "models/ folder shipped with dipshape).", show_default=False)] = None,
+    ephemeris: Annotated[str | None, typer.Option(
+        "--ephemeris", metavar="P,T0,DUR",
+        help="Known period, mid-transit epoch and duration in days (the files' own time "
+        "system), applied to every segment; no period is searched.",
+        show_default=False)] = None,
+) -> None:
+    """Score light curves: one JSON object per segment, one per line.
+
+    Each PATH is a light-curve file (.csv .tsv .txt .csv.gz, .json, .fits .fit .fts .fits.gz,
+    .parquet .pq) or a folder whose light-curve files are scored in name order (not recursing;
+    hidden files and labels.csv are skipped). A CSV or Parquet table with a segment_id column,
+    or a JSON list, holds many segments.
+
+    Each line is a result {schema_version, id, label, probabilities, flags, features, events,
+    ephemeris, model, elapsed_ms} or, for a file or segment that cannot be scored, an error
+    {schema_version, id, error, detail} (error is a stable code); the schema is
+    service/result.schema.json, schema_version "1". The id is the file's name without its
+    suffix, or the segment_id of a table. Lines follow the order of the inputs and, apart from
+    elapsed_ms, are identical from run to run. A progress bar goes to standard error when it
+    is a terminal.
+
+    Exit codes: 0 every segment scored; 1 some segment could not be scored (the others are
+    still written) or the model could not be loaded; 2 bad arguments (e.g. --ephemeris) or no
+    light-curve file found.
+
+    Examples:
+
+      dipshape score LS-0042.csv
+
+      dipshape score lumen_sector3/ --out results.jsonl
+
+      dipshape score batch.parquet --registry models --model default-2026-12-02T0130Z
+
+      dipshape score LS-0042.fits --ephemeris 3.52,1412.37,0.12
+    """
+    from tqdm import tqdm
+
+    from features.catalog import FEATURE_VERSION
+    from service.scoring import (
+        check_model,
+        default_registry_root,
+        find_inputs,
+        json_line,
+        load_ood,
+        parse_ephemeris,
+        score_path,
+    )
+    from training.registry import load_model
+
+    try:
+        known = None if ephemeris is None else parse_ephemeris(ephemeris)
+        files = find_inputs(paths)
+        root = registry if registry is not None else default_registry_root()
+        model = load_model(root, model_version, expected_feature_version=FEATURE_VERSION)
+        check_model(model)
+        ood = load_ood(root, model.card.version)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    n_scored = n_failed = 0
+    sink = None
+    if out is not None:
+        try:
+            out.parent.mkdir(parents=True, exist_ok=True)
+            sink = out.open("w", encoding="utf-8")
+        except OSError as exc:
+            raise _fail(ParameterError(
+                "unwritable_output", f"--out {out}: {exc.strerror or exc}")) from exc
+    try:
+        with tqdm(total=len(files), desc="scoring", unit="file", file=sys.stderr,
+                  leave=False, disable=None) as bar:
+            for path in files:
+                try:
+                    lines = score_path(path, model, ephemeris=known, ood=ood)
+                except DipshapeError as err:
+                    raise _fail(err) from err
+                for line in lines:
+                    failed = "error" in line
+                    n_failed += failed
+                    n_scored += not failed
+                    text = json_line(line)
+                    if sink is None:
+                        typer.echo(text)
+                    else:
+                        sink.write(text + "\n")
+                if sink is not None:
+                    sink.flush()
+                bar.update(1)
+    finally:
+        if sink is not None:
+            sink.close()
+    where = f" -> {out}" if out is not None else ""
+    typer.echo(f"scored {n_scored} segment(s) from {len(files)} file(s) with model "
+               f"{model.card.version}; {n_failed} failed{where}", err=True)
+    if n_failed:
+        raise typer.Exit(EXIT_FAILURE)
 
 
 def main() -> None:  # pragma: no cover - console entry point
