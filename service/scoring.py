@@ -58,6 +58,7 @@ from features.pipeline import extract
 from features.segment import Segment
 from training.classes import CLASSES
 from training.registry import LoadedModel, read_card
+from training.train import OOD_RARE_NAN_FRACTION, ood_score
 
 __all__ = [
     "OOD_FILE",
@@ -91,9 +92,6 @@ OOD_FILE = "ood.json"
 
 OOD_MAX_OUTSIDE = 3
 """``out_of_distribution`` is raised when MORE than this many features fall outside."""
-
-OOD_RARE_NAN_FRACTION = 0.001
-"""A NaN counts as outside when fewer than this fraction of training rows had that feature NaN."""
 
 SKIPPED_NAMES: tuple[str, ...] = ("labels.csv",)
 """File names skipped when a folder is expanded (the truth table of ``dipshape simulate``)."""
@@ -411,19 +409,10 @@ def ood_outside(features: Mapping[str, float | None], ood: Mapping[str, Any]) ->
     ('snr',)
     """
     table = _check_ood(ood, where="ood")
-    outside = []
-    for name in FEATURE_NAMES:
-        if name not in table or name not in features:
-            continue
-        entry = table[name]
-        value = features[name]
-        if value is None or not math.isfinite(float(value)):
-            if entry["nan_fraction"] < OOD_RARE_NAN_FRACTION:
-                outside.append(name)
-            continue
-        lo, hi = entry["q_lo"], entry["q_hi"]
-        if lo is None or hi is None or float(value) < lo or float(value) > hi:
-            outside.append(name)
+    names = [n for n in FEATURE_NAMES if n in table and n in features]
+    values = np.array([np.nan if features[n] is None else float(features[n]) for n in names])
+    # one rule for training and scoring: training.train.ood_score
+    _, outside = ood_score(values, {"features": {n: table[n] for n in names}})
     return tuple(outside)
 
 
