@@ -250,6 +250,204 @@ def score(
         raise typer.Exit(EXIT_FAILURE)
 
 
+_PRESETS: dict[str, dict[str, int]] = {
+    # n: simulated segments (balanced over the five classes); seed: of the simulation and split
+    "default": {"n": 10_000, "seed": 0},
+    "small": {"n": 1_500, "seed": 0},
+}
+
+
+def _registry_or_default(registry: Path | None) -> Path:
+    from service.scoring import default_registry_root
+
+    return registry if registry is not None else default_registry_root()
+
+
+@app.command()
+def train(
+    preset: Annotated[str, typer.Option(
+        "--preset", help=f"Simulated training set: {', '.join(_PRESETS)} (segments and seed).")
+    ] = "default",
+    simulated: Annotated[int | None, typer.Option(
+        "--simulated", min=0, help="Number of simulated segments (overrides the preset).")] = None,
+    labels: Annotated[Path | None, typer.Option(
+        "--labels", help="CSV of the group's own labels (id,label; id = a file stem).")] = None,
+    segments: Annotated[Path | None, typer.Option(
+        "--segments", help="Folder holding the labelled light curves.")] = None,
+    name: Annotated[str, typer.Option("--name", help="Model name.")] = "default",
+    version: Annotated[str | None, typer.Option(
+        "--version", help="Version folder name (default: NAME-<UTC time>).")] = None,
+    seed: Annotated[int | None, typer.Option("--seed", help="Seed (overrides the preset).")] = None,
+    registry: Annotated[Path | None, typer.Option(
+        "--registry", help="Model registry folder (default: ./models, else the shipped one).")
+    ] = None,
+    jobs: Annotated[int, typer.Option("--jobs", "-j", min=1, help="Parallel processes.")] = 1,
+    cache: Annotated[Path | None, typer.Option(
+        "--cache", help="Folder caching feature tables (keyed by FEATURE_VERSION).")] = None,
+) -> None:
+    """Train a calibrated classifier and register it as a new, inactive model version.
+
+    The simulated part is reproducible from the preset (or --simulated/--seed); a group's own
+    labelled light curves can be added with --labels and --segments (labels may name classes
+    beyond the five built in). The new version is not active until `dipshape models activate`
+    or `dipshape models promote`.
+
+    Examples:
+
+      dipshape train --preset default --jobs 2
+
+      dipshape train --labels labels.csv --segments my_segments/ --simulated 5000 --name group
+    """
+    import shlex
+
+    import pandas as pd
+
+    from training.dataset import labelled_table, simulated_table
+    from training.train import train_and_save
+
+    if preset not in _PRESETS:
+        raise _fail(ParameterError(
+            "invalid_parameter", f"--preset must be one of {', '.join(_PRESETS)}, got {preset!r}"))
+    if (labels is None) != (segments is None):
+        raise _fail(ParameterError("invalid_parameter",
+                                   "--labels and --segments go together"))
+    n = _PRESETS[preset]["n"] if simulated is None else simulated
+    seed_ = _PRESETS[preset]["seed"] if seed is None else seed
+    # the exact command that reproduces this model (recorded in its card)
+    command = ["dipshape", "train", "--preset", preset, "--simulated", str(n), "--seed",
+               str(seed_), "--name", name]
+    if labels is not None and segments is not None:
+        command += ["--labels", str(labels), "--segments", str(segments)]
+    try:
+        parts = []
+        if n > 0:
+            parts.append(simulated_table(n, seed=seed_, n_jobs=jobs, progress=True,
+                                         cache_dir=cache))
+        if labels is not None and segments is not None:
+            own, summary = labelled_table(labels, segments, n_jobs=jobs, progress=True)
+            typer.echo(f"group labels: {summary}", err=True)
+            parts.append(own)
+        if not parts:
+            raise ParameterError("invalid_parameter", "nothing to train on: --simulated 0 and "
+                                 "no --labels")
+        table = pd.concat(parts, ignore_index=True)
+        from threadpoolctl import threadpool_limits
+
+        with threadpool_limits(1):
+            card = train_and_save(table, registry=_registry_or_default(registry), name=name,
+                                  seed=seed_, command=shlex.join(command), version=version)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    f1, ece = _headline(card)
+    typer.echo(f"registered {card.version} (not active): macro-F1 {f1}, ECE {ece} on its "
+               "held-out test split; see its report/report.html")
+
+
+def _headline(card) -> tuple[str, str]:
+    """Macro-F1 and ECE of the calibrated model from a card's metrics (or '?')."""
+    for row in card.metrics.get("models", []):
+        if row.get("name") == "calibrated":
+            f1, ece = row.get("macro_f1"), row.get("ece")
+            return (f"{f1:.3f}" if f1 is not None else "?", f"{ece:.3f}" if ece is not None
+                    else "?")
+    return "?", "?"
+
+
+models_app = typer.Typer(help="List, inspect, activate and promote model versions.",
+                         no_args_is_help=True, rich_markup_mode="markdown")
+app.add_typer(models_app, name="models")
+
+_RegistryOpt = Annotated[Path | None, typer.Option(
+    "--registry", help="Model registry folder (default: ./models, else the shipped one).")]
+
+
+@models_app.command("list")
+def models_list(registry: _RegistryOpt = None) -> None:
+    """List the model versions of a registry (the active one marked with *)."""
+    from training.registry import list_models
+
+    try:
+        cards = list_models(_registry_or_default(registry))
+    except DipshapeError as err:
+        raise _fail(err) from err
+    for card in cards:
+        mark = "*" if card.active else " "
+        f1, ece = _headline(card)
+        typer.echo(f"{mark} {card.version}  {card.name}  {card.created_utc}  macro-F1 {f1}  "
+                   f"ECE {ece}")
+
+
+@models_app.command("show")
+def models_show(version: str, registry: _RegistryOpt = None) -> None:
+    """Print the card (classes, features, training data, metrics, hashes) of a version."""
+    import json
+
+    from training.registry import read_card
+
+    try:
+        card = read_card(_registry_or_default(registry), version)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    typer.echo(json.dumps(card.to_dict(), indent=2))
+
+
+@models_app.command("activate")
+def models_activate(version: str, registry: _RegistryOpt = None) -> None:
+    """Make a version the active one (atomic)."""
+    from training.registry import activate
+
+    try:
+        activate(_registry_or_default(registry), version)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    typer.echo(f"active: {version}")
+
+
+@models_app.command("promote")
+def models_promote(
+    version: str,
+    registry: _RegistryOpt = None,
+    n: Annotated[int, typer.Option("--n", min=50, help="Fresh simulated segments to compare on.")
+                 ] = 1000,
+    seed: Annotated[int, typer.Option("--seed", help="Seed of the comparison set.")] = 12345,
+    force: Annotated[bool, typer.Option("--force", help="Activate even if it is worse.")] = False,
+    jobs: Annotated[int, typer.Option("--jobs", "-j", min=1)] = 1,
+) -> None:
+    """Activate a version only if it is at least as good as the active one.
+
+    Both models are evaluated on the same fresh simulated set; a candidate with a lower
+    macro-F1 is refused unless --force.
+
+    Example:
+
+      dipshape models promote default-2026-12-02T0130Z --n 2000
+    """
+    from features.catalog import FEATURE_VERSION
+    from training.dataset import simulated_table
+    from training.registry import activate, active_version, load_model
+    from training.train import evaluate_model
+
+    root = _registry_or_default(registry)
+    try:
+        candidate = load_model(root, version, expected_feature_version=FEATURE_VERSION)
+        current = active_version(root)
+        table = simulated_table(n, seed=seed, n_jobs=jobs, progress=True)
+        new = evaluate_model(candidate.estimator, table, classes=list(candidate.card.classes))
+        typer.echo(f"candidate {version}: macro-F1 {new['macro_f1']:.4f}")
+        if current is not None and current != version:
+            active = load_model(root, current, expected_feature_version=FEATURE_VERSION)
+            old = evaluate_model(active.estimator, table, classes=list(active.card.classes))
+            typer.echo(f"active    {current}: macro-F1 {old['macro_f1']:.4f}")
+            if new["macro_f1"] < old["macro_f1"] and not force:
+                typer.echo(f"refused: {version} is worse than the active {current} on the same "
+                           "set (use --force to activate anyway)", err=True)
+                raise typer.Exit(EXIT_FAILURE)
+        activate(root, version)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    typer.echo(f"active: {version}")
+
+
 def main() -> None:  # pragma: no cover - console entry point
     """Run the CLI."""
     app()

@@ -1,0 +1,75 @@
+"""`dipshape train` and `dipshape models ...`: registering, listing, activating, promoting."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from threadpoolctl import threadpool_limits
+from typer.testing import CliRunner
+
+from service.cli import app
+from training.registry import active_version, list_models
+
+runner = CliRunner()
+
+
+@pytest.fixture(scope="module")
+def registry(tmp_path_factory):
+    root = tmp_path_factory.mktemp("registry")
+    cache = tmp_path_factory.mktemp("cache")
+    with threadpool_limits(1):
+        for seed in (1, 2):
+            result = runner.invoke(app, ["train", "--simulated", "250", "--seed", str(seed),
+                                         "--registry", str(root), "--cache", str(cache),
+                                         "--name", f"m{seed}"])
+            assert result.exit_code == 0, result.output
+    return root
+
+
+def test_train_registers_inactive_versions_with_their_command(registry):
+    cards = list_models(registry)
+    assert len(cards) == 2
+    assert active_version(registry) is None
+    assert all(c.command.startswith("dipshape train") for c in cards)
+    assert all((registry / c.version / "report" / "report.html").is_file() for c in cards)
+
+
+def test_list_show_and_activate(registry):
+    versions = [c.version for c in list_models(registry)]
+    out = runner.invoke(app, ["models", "list", "--registry", str(registry)])
+    assert out.exit_code == 0 and all(v in out.output for v in versions)
+    shown = runner.invoke(app, ["models", "show", versions[0], "--registry", str(registry)])
+    card = json.loads(shown.output)
+    assert card["version"] == versions[0] and len(card["feature_names"]) > 50
+    act = runner.invoke(app, ["models", "activate", versions[0], "--registry", str(registry)])
+    assert act.exit_code == 0 and active_version(registry) == versions[0]
+    bad = runner.invoke(app, ["models", "activate", "nope", "--registry", str(registry)])
+    assert bad.exit_code != 0 and "model_not_found" in bad.output
+
+
+def test_promote_compares_on_the_same_set_and_respects_force(registry):
+    versions = [c.version for c in list_models(registry)]
+    runner.invoke(app, ["models", "activate", versions[0], "--registry", str(registry)])
+    args = ["models", "promote", versions[1], "--registry", str(registry), "--n", "60"]
+    with threadpool_limits(1):
+        result = runner.invoke(app, args)
+    lines = [ln for ln in result.output.splitlines() if "macro-F1" in ln]
+    f1 = [float(ln.rsplit(" ", 1)[1]) for ln in lines]
+    assert len(f1) == 2
+    if f1[0] < f1[1]:
+        # a worse candidate is refused and the active model stays
+        assert result.exit_code == 1 and active_version(registry) == versions[0]
+        with threadpool_limits(1):
+            forced = runner.invoke(app, [*args, "--force"])
+        assert forced.exit_code == 0
+    else:
+        assert result.exit_code == 0
+    assert active_version(registry) == versions[1]
+
+
+def test_bad_train_arguments(tmp_path):
+    r = runner.invoke(app, ["train", "--preset", "huge", "--registry", str(tmp_path)])
+    assert r.exit_code == 2 and "invalid_parameter" in r.output
+    r = runner.invoke(app, ["train", "--labels", "x.csv", "--registry", str(tmp_path)])
+    assert r.exit_code == 2 and "--segments" in r.output
