@@ -93,12 +93,14 @@ def demo(
     out: Annotated[Path, typer.Option("--out", help="Folder for the demo's pictures.")] = Path(
         "demo_out"),
     seed: Annotated[int, typer.Option("--seed")] = 7,
+    registry: Annotated[Path | None, typer.Option(
+        "--registry", help="Model registry (default: ./models, else the shipped one).")] = None,
 ) -> None:
-    """Simulate segments of each class, measure their shape, and draw them.
+    """Simulate segments of a fictional survey, score them with the shipped model, draw them.
 
-    Until the classifier lands this shows the simulator and the feature extractor at work: the
-    true class, and what the shape measurements say (the best-fitting family by BIC, skewness,
-    ingress/egress ratio, odd/even), plus a gallery PNG.
+    Each row shows the true class, the label the model gives with its probability, the
+    best-fitting shape family by BIC, a few shape measurements and the flags; a gallery PNG of
+    the segments goes to --out.
 
     Example:
 
@@ -107,33 +109,44 @@ def demo(
     from rich.console import Console
     from rich.table import Table
 
-    from features.pipeline import extract
+    from features.catalog import FEATURE_VERSION
     from features.segment import make_segment
+    from service.scoring import load_ood, score_segment
     from training.gallery import plot_gallery
+    from training.registry import load_model
     from training.simulate import simulate_dataset
 
+    root = _registry_or_default(registry)
     try:
+        model = load_model(root, expected_feature_version=FEATURE_VERSION)
+        ood = load_ood(root, model.card.version)
         segments = simulate_dataset(20, seed=seed, id_prefix="LS-demo-")
         png = plot_gallery(segments, out / "simulated_examples.png")
-        measured = [extract(make_segment(s.time, s.flux, s.flux_err, id=s.id)) for s in segments]
+        results = [score_segment(make_segment(s.time, s.flux, s.flux_err, id=s.id), model,
+                                 ood=ood) for s in segments]
     except DipshapeError as err:
         raise _fail(err) from err
-    table = Table(title="Simulated segments of the (fictional) Lumen Survey, measured")
-    for col in ("id", "true class", "subtype", "SNR", "events", "best family (BIC)", "skewness",
-                "ingress/egress", "odd/even [sigma]", "flags"):
+    table = Table(title=f"Simulated segments of the (fictional) Lumen Survey, scored by "
+                        f"{model.card.version}")
+    for col in ("id", "true class", "label", "p", "SNR", "skewness", "ingress/egress",
+                "odd/even", "flags"):
         table.add_column(col)
 
-    def num(x: float) -> str:
-        return "-" if x != x else f"{x:.2f}"
+    def num(x: float | None) -> str:
+        return "-" if x is None or x != x else f"{x:.2f}"
 
-    for s, f in zip(segments, measured, strict=True):
-        table.add_row(s.id, s.label, s.subtype, f"{s.snr:.0f}",
-                      f"{f['n_events']:.0f}", f.fits.best_family if f.fits else "-",
-                      num(f["skewness"]), num(f["ingress_egress_ratio"]),
-                      num(f["odd_even_sigma"]), ", ".join(f.flags))
+    right = 0
+    for s, r in zip(segments, results, strict=True):
+        right += r.label == s.label
+        mark = "" if r.label == s.label else " (x)"
+        table.add_row(s.id, s.label, r.label + mark, f"{r.probabilities[r.label]:.2f}",
+                      f"{s.snr:.0f}", num(r.features["skewness"]),
+                      num(r.features["ingress_egress_ratio"]), num(r.features["odd_even_sigma"]),
+                      ", ".join(r.flags))
     console = Console(width=max(Console().width, 150))
     console.print(table)
-    console.print(f"gallery written to {png}")
+    console.print(f"{right} of {len(segments)} labels agree with the simulated truth; gallery "
+                  f"written to {png}")
     console.print(CAUTION)
 
 

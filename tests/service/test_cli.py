@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pandas as pd
 from typer.testing import CliRunner
 
@@ -54,8 +56,10 @@ def test_bad_arguments_give_the_error_code_and_usage_exit(tmp_path):
     assert "unsupported_format" in result.output
 
 
-def test_demo_runs_and_shows_the_caution(tmp_path):
-    result = runner.invoke(app, ["demo", "--out", str(tmp_path)])
+def test_demo_scores_with_the_shipped_model_and_shows_the_caution(tmp_path):
+    shipped = Path(__file__).resolve().parents[2] / "models"
+    result = runner.invoke(app, ["demo", "--out", str(tmp_path), "--registry", str(shipped)])
     assert result.exit_code == 0, result.output
     assert "triage, not a discovery" in result.output
+    assert "labels agree with the simulated truth" in result.output
     assert (tmp_path / "simulated_examples.png").is_file()
