@@ -9,7 +9,6 @@ false alarms; numpy's modular arithmetic for folding.
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import batman
 import numpy as np
@@ -35,7 +34,6 @@ from features.events import (
 
 TWO_MIN = 2.0 / 1440.0
 THIRTY_MIN = 30.0 / 1440.0
-REAL_LC = Path(__file__).resolve().parents[3] / "shared" / "real_lc"
 
 
 def _params(*, t0, per, rp, a, inc, u=(0.4, 0.26)):
@@ -468,12 +466,10 @@ def test_other_entry_points_validate():
 
 
 @pytest.mark.real_lc
-def test_real_tess_planet_transits_and_period():
+def test_real_tess_planet_transits_and_period(real_lc_dir):
     """A TESS 2-min sector of a known hot Jupiter (MANIFEST.csv: 8 transits, P = 3.2888 d
     in the literature, mid-times listed there)."""
-    path = REAL_LC / "tess_WASP-126_s01.fits"
-    if not path.exists():
-        pytest.skip("shared real light curves not available")
+    path = real_lc_dir / "tess_WASP-126_s01.fits"
     from astropy.io import fits
 
     with fits.open(path) as hdul:
