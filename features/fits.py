@@ -712,7 +712,7 @@ def _secondary_gain(win: Window, t14: float, k: float, beta: float) -> tuple[flo
 
 
 def _fit_transit(win: Window, start: dict[str, float], *, eclipse: bool,
-                 method: str, from_transit: FamilyFit | None = None) -> FamilyFit:
+                 method: str) -> FamilyFit:
     t, y, w, n = win.t, win.y, win.w, win.n_bins
     sw = np.sqrt(w)
     d = win.duration_days
@@ -740,15 +740,6 @@ def _fit_transit(win: Window, start: dict[str, float], *, eclipse: bool,
     i_beta, i_t14 = divmod(kbest, t14s.size)
     best = (float(chi[kbest]), float(t14s[i_t14]), ks[i_beta], betas[i_beta])
     _, t14_0, k_0, beta_0 = best
-    if from_transit is not None:
-        # the eclipse family nests the transit: start it from the transit's solution when
-        # that fits at least as well as the grid start
-        tp = from_transit.params
-        k_t = float(np.clip(tp["k"], 0.011, k_max * 0.99))
-        beta_t = float(np.clip(tp["b"] / (1.0 + tp["k"]), 0.0, 0.98))
-        if from_transit.chi2 <= best[0]:
-            start = {**start, "t0": tp["t0"]}
-            t14_0, k_0, beta_0 = tp["t14_days"], k_t, beta_t
     lo = np.array([win.t_mid - d, 0.2 * d, 0.01, 0.0])
     hi = np.array([win.t_mid + d, 4.0 * d, k_max, 0.985])
 
@@ -881,10 +872,9 @@ def fit_event(
         raise ParameterError("invalid_parameter",
                              f"method must be 'fast' or 'scipy', got {method!r}")
     asym = _asymmetric(win, start, method) if with_asymmetric else None
-    transit = _fit_transit(win, start, eclipse=False, method=method)
     families = {
-        "transit": transit,
-        "eclipse": _fit_transit(win, start, eclipse=True, method=method, from_transit=transit),
+        "transit": _fit_transit(win, start, eclipse=False, method=method),
+        "eclipse": _fit_transit(win, start, eclipse=True, method=method),
         "comet": _fit_comet(win, templates["comet"], method),
         "variability": _fit_variability(win),
         "artefact": _fit_artefact(win, templates["box"], method),
