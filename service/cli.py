@@ -263,10 +263,12 @@ def score(
         raise typer.Exit(EXIT_FAILURE)
 
 
-_PRESETS: dict[str, dict[str, int]] = {
-    # n: simulated segments (balanced over the five classes); seed: of the simulation and split
-    "default": {"n": 10_000, "seed": 0},
-    "small": {"n": 1_500, "seed": 0},
+_PRESETS: dict[str, dict[str, float]] = {
+    # n: simulated segments (balanced over the five classes); seed: of the simulation and split;
+    # min_dip_snr: planets, binaries and comets are drawn again until their dip reaches this SNR
+    # (a survey only passes on dips it detected; training/simulate.py)
+    "default": {"n": 10_000, "seed": 0, "min_dip_snr": 10.0},
+    "small": {"n": 1_500, "seed": 0, "min_dip_snr": 10.0},
 }
 
 
@@ -324,8 +326,9 @@ def train(
     if (labels is None) != (segments is None):
         raise _fail(ParameterError("invalid_parameter",
                                    "--labels and --segments go together"))
-    n = _PRESETS[preset]["n"] if simulated is None else simulated
-    seed_ = _PRESETS[preset]["seed"] if seed is None else seed
+    n = int(_PRESETS[preset]["n"]) if simulated is None else simulated
+    seed_ = int(_PRESETS[preset]["seed"]) if seed is None else seed
+    min_dip_snr = float(_PRESETS[preset]["min_dip_snr"])
     # the exact command that reproduces this model (recorded in its card)
     command = ["dipshape", "train", "--preset", preset, "--simulated", str(n), "--seed",
                str(seed_), "--name", name]
@@ -335,7 +338,7 @@ def train(
         parts = []
         if n > 0:
             parts.append(simulated_table(n, seed=seed_, n_jobs=jobs, progress=True,
-                                         cache_dir=cache))
+                                         cache_dir=cache, min_dip_snr=min_dip_snr))
         if labels is not None and segments is not None:
             own, summary = labelled_table(labels, segments, n_jobs=jobs, progress=True)
             typer.echo(f"group labels: {summary}", err=True)
@@ -343,7 +346,8 @@ def train(
         if not parts:
             raise ParameterError("invalid_parameter", "nothing to train on: --simulated 0 and "
                                  "no --labels")
-        table = pd.concat(parts, ignore_index=True)
+        # a single part keeps its provenance (attrs) for the model card
+        table = parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
         from threadpoolctl import threadpool_limits
 
         with threadpool_limits(1):

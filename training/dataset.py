@@ -91,6 +91,7 @@ def simulated_table(
     progress: bool = False,
     cache_dir: str | os.PathLike[str] | None = None,
     priors: PriorTable = PRIORS,
+    min_dip_snr: float = 0.0,
 ) -> pd.DataFrame:
     """Simulate ``n`` labelled segments and measure their features.
 
@@ -112,6 +113,9 @@ def simulated_table(
         to a temporary name, then renamed) and read back when that file already exists.
     priors : PriorTable
         Prior table of the simulator (its hash is part of the cache key).
+    min_dip_snr : float
+        Detection selection of the planet, binary and comet segments
+        (:func:`training.simulate.simulate_segment`); part of the cache key.
 
     Returns
     -------
@@ -141,23 +145,26 @@ def simulated_table(
     _check_count(n, "n")
     _check_count(seed, "seed", minimum=0)
     _check_n_jobs(n_jobs)
-    key = cache_key(n, seed=seed, classes=classes, priors=priors)
+    key = cache_key(n, seed=seed, classes=classes, priors=priors, min_dip_snr=min_dip_snr)
     path = None if cache_dir is None else Path(cache_dir) / f"{key}.parquet"
     if path is not None and path.is_file():
         table = pd.read_parquet(path)
         logger.info("cache hit: read %d rows from %s (%d of %d segments were refused when "
                     "it was built)", len(table), path, n - len(table), n)
-        table.attrs["source"] = _source(n, seed, classes, priors, refused=n - len(table))
+        table.attrs["source"] = _source(n, seed, classes, priors, refused=n - len(table),
+                                        min_dip_snr=min_dip_snr)
         return table
 
     prefix = f"SIM{seed}-"
     children = np.random.SeedSequence(seed).spawn(n)
     jobs = [(i, classes[i % len(classes)], children[i]) for i in range(n)]
-    worker = functools.partial(_simulated_chunk, prefix=prefix, priors=priors)
+    worker = functools.partial(_simulated_chunk, prefix=prefix, priors=priors,
+                               min_dip_snr=min_dip_snr)
     table, refused = _measure_all(jobs, worker, n_jobs=n_jobs, progress=progress,
                                   desc="simulating and measuring")
     _log_refused(refused, total=n, what="simulated segments")
-    table.attrs["source"] = _source(n, seed, classes, priors, refused=len(refused))
+    table.attrs["source"] = _source(n, seed, classes, priors, refused=len(refused),
+                                    min_dip_snr=min_dip_snr)
     if path is not None:
         _write_atomic(table, path)
         logger.info("cached %d rows in %s", len(table), path)
@@ -294,7 +301,8 @@ def feature_matrix(table: pd.DataFrame) -> np.ndarray:
     return table.loc[:, list(FEATURE_NAMES)].to_numpy(dtype=np.float64)
 
 
-def cache_key(n: int, *, seed: int, classes: Sequence[str], priors: PriorTable = PRIORS) -> str:
+def cache_key(n: int, *, seed: int, classes: Sequence[str], priors: PriorTable = PRIORS,
+              min_dip_snr: float = 0.0) -> str:
     """The cache file stem of a simulated table.
 
     ``features-v<FEATURE_VERSION>-n<n>-seed<seed>-<classes joined by '+'>-priors<hash>``, the
@@ -305,8 +313,9 @@ def cache_key(n: int, *, seed: int, classes: Sequence[str], priors: PriorTable =
     >>> cache_key(10, seed=3, classes=["planet", "exocomet"])[:40]
     'features-v1-n10-seed3-planet+exocomet-pri'
     """
+    selection = f"-snr{min_dip_snr:g}" if min_dip_snr > 0 else ""
     return (f"features-v{FEATURE_VERSION}-n{int(n)}-seed{int(seed)}-{'+'.join(classes)}"
-            f"-priors{_priors_hash(priors)[:16]}")
+            f"-priors{_priors_hash(priors)[:16]}{selection}")
 
 
 # --------------------------------------------------------------------------------------------
@@ -328,14 +337,15 @@ def _measure_one(id: str, label: str, subtype: str, true_snr: float,
 
 
 def _simulated_chunk(jobs: Sequence[tuple[int, str, np.random.SeedSequence]], *, prefix: str,
-                     priors: PriorTable) -> list[tuple[_Row | None, _Refusal | None]]:
+                     priors: PriorTable, min_dip_snr: float = 0.0,
+                     ) -> list[tuple[_Row | None, _Refusal | None]]:
     from threadpoolctl import threadpool_limits
 
     out = []
     with threadpool_limits(limits=1):
         for i, label, child in jobs:
             sim = simulate_segment(label, np.random.default_rng(child), id=f"{prefix}{i:06d}",
-                                   priors=priors)
+                                   priors=priors, min_dip_snr=min_dip_snr)
             out.append(_measure_one(
                 sim.id, sim.label, sim.subtype, sim.snr,
                 functools.partial(make_segment, sim.time, sim.flux, sim.flux_err, id=sim.id)))
@@ -433,10 +443,10 @@ def _priors_hash(priors: PriorTable) -> str:
 
 
 def _source(n: int, seed: int, classes: Sequence[str], priors: PriorTable, *,
-            refused: int) -> dict[str, Any]:
+            refused: int, min_dip_snr: float = 0.0) -> dict[str, Any]:
     return {"kind": "simulated", "n": int(n), "seed": int(seed), "classes": list(classes),
             "priors_sha256": _priors_hash(priors), "feature_version": FEATURE_VERSION,
-            "n_refused": int(refused)}
+            "n_refused": int(refused), "min_dip_snr": float(min_dip_snr)}
 
 
 def _write_atomic(table: pd.DataFrame, path: Path) -> None:

@@ -50,6 +50,7 @@ from training.noise import ou_noise
 from training.priors import PRIORS, PriorTable
 
 __all__ = [
+    "DIP_CLASSES",
     "SimulatedSegment",
     "labels_table",
     "observing_grid",
@@ -423,6 +424,12 @@ def _dip_snr(time: np.ndarray, model: np.ndarray, sigma_white: float) -> tuple[f
     return depth, depth / sigma_white * np.sqrt(n_in)
 
 
+DIP_CLASSES: tuple[str, ...] = ("planet", "eclipsing_binary", "exocomet")
+"""Classes whose segments reach the product because a survey detected their dip."""
+
+_MAX_DRAWS = 200
+
+
 def simulate_segment(
     label: str,
     rng: np.random.Generator,
@@ -431,6 +438,7 @@ def simulate_segment(
     priors: PriorTable = PRIORS,
     cadence_min: float | None = None,
     window_days: float | None = None,
+    min_dip_snr: float = 0.0,
 ) -> SimulatedSegment:
     """Simulate one labelled segment.
 
@@ -446,6 +454,11 @@ def simulate_segment(
         Prior table (default :data:`training.priors.PRIORS`).
     cadence_min, window_days : float, optional
         Force the cadence [min] and a contiguous window [days] (e.g. for benchmarks).
+    min_dip_snr : float
+        Detection selection: a planet, binary or comet segment is drawn again (observing
+        conditions included) until its dip SNR reaches this value, as a survey only passes on
+        dips it detected; 0 (default) keeps every draw, so the samples follow the priors.
+        Variability and artefacts are never selected. ``truth["draws"]`` records the draws.
 
     Returns
     -------
@@ -463,6 +476,29 @@ def simulate_segment(
     >>> seg.label, seg.time.size > 20
     ('exocomet', True)
     """
+    if min_dip_snr < 0:
+        raise ParameterError("invalid_parameter", f"min_dip_snr must be >= 0, got {min_dip_snr}")
+    draws = 0
+    while True:
+        draws += 1
+        seg = _simulate_once(label, rng, id=id, priors=priors, cadence_min=cadence_min,
+                             window_days=window_days)
+        if label not in DIP_CLASSES or seg.snr >= min_dip_snr or draws >= _MAX_DRAWS:
+            break
+    seg.truth["draws"] = draws
+    return seg
+
+
+def _simulate_once(
+    label: str,
+    rng: np.random.Generator,
+    *,
+    id: str,
+    priors: PriorTable,
+    cadence_min: float | None,
+    window_days: float | None,
+) -> SimulatedSegment:
+    """One draw of a segment (see :func:`simulate_segment`)."""
     if label not in CLASSES:
         raise ParameterError("unknown_class",
                              f"label {label!r} is not simulated; choose from {', '.join(CLASSES)}")
@@ -540,6 +576,7 @@ def simulate_dataset(
     window_days: float | None = None,
     id_prefix: str | None = None,
     on_chunk: Callable[[int], None] | None = None,
+    min_dip_snr: float = 0.0,
 ) -> list[SimulatedSegment]:
     """Simulate ``n`` segments balanced across ``classes``.
 
@@ -561,6 +598,8 @@ def simulate_dataset(
         Forwarded to :func:`simulate_segment`.
     id_prefix : str, optional
         Prefix of the ids (default ``"SIM{seed}-"``).
+    min_dip_snr : float
+        Detection selection of the dip classes, see :func:`simulate_segment`.
     on_chunk : callable, optional
         Called with the number of segments finished after each chunk.
 
@@ -582,7 +621,8 @@ def simulate_dataset(
     jobs = [(i, classes[i % len(classes)], children[i]) for i in range(n)]
     chunk = max(1, min(200, n // (4 * max(n_jobs, 1)) or 1))
     chunks = [jobs[i : i + chunk] for i in range(0, n, chunk)]
-    kwargs = {"priors": priors, "cadence_min": cadence_min, "window_days": window_days}
+    kwargs = {"priors": priors, "cadence_min": cadence_min, "window_days": window_days,
+              "min_dip_snr": min_dip_snr}
     bar = None
     if progress:
         from tqdm import tqdm

@@ -99,8 +99,8 @@ def test_cache_key_follows_the_feature_version(monkeypatch):
 def test_refused_segments_are_dropped_and_counted(monkeypatch, caplog):
     real = dataset.simulate_segment
 
-    def flat_every_third(label, rng, *, id, priors):
-        sim = real(label, rng, id=id, priors=priors)
+    def flat_every_third(label, rng, *, id, priors, min_dip_snr=0.0):
+        sim = real(label, rng, id=id, priors=priors, min_dip_snr=min_dip_snr)
         if int(id.rsplit("-", 1)[1]) % 3 == 0:  # 0, 3, 6, 9: constant flux
             return dataclasses.replace(sim, flux=np.full_like(sim.flux, 7.0))
         return sim

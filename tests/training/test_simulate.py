@@ -286,3 +286,20 @@ def test_labels_table_has_every_parameter():
     frame = labels_table(segs)
     assert len(frame) == 5
     assert "planet.k" in frame.columns and "eb.third_light" in frame.columns
+
+
+def test_detection_selection_keeps_only_detectable_dips():
+    # surveys pass on dips they detected: with min_dip_snr every planet, binary and comet
+    # reaches it (Pont et al. 2006 white-noise SNR, as recorded), other classes are untouched
+    segs = simulate_dataset(25, seed=31, min_dip_snr=12.0)
+    for s in segs:
+        if s.label in ("planet", "eclipsing_binary", "exocomet"):
+            assert s.snr >= 12.0 and s.truth["draws"] >= 1
+        else:
+            assert s.truth["draws"] == 1
+    plain = simulate_dataset(25, seed=31)
+    assert all(s.truth["draws"] == 1 for s in plain)
+    # without selection some dips are below the threshold (the priors reach low SNR)
+    assert any(s.snr < 12.0 for s in plain if s.label in ("planet", "exocomet"))
+    with pytest.raises(ParameterError, match="min_dip_snr"):
+        simulate_segment("planet", np.random.default_rng(0), min_dip_snr=-1.0)
