@@ -427,13 +427,17 @@ def models_promote(
     n: Annotated[int, typer.Option("--n", min=50, help="Fresh simulated segments to compare on.")
                  ] = 1000,
     seed: Annotated[int, typer.Option("--seed", help="Seed of the comparison set.")] = 12345,
+    min_dip_snr: Annotated[float, typer.Option(
+        "--min-dip-snr", min=0.0, help="Detection selection of the comparison set's planets, "
+        "binaries and comets (as in the training presets).")] = 10.0,
     force: Annotated[bool, typer.Option("--force", help="Activate even if it is worse.")] = False,
     jobs: Annotated[int, typer.Option("--jobs", "-j", min=1)] = 1,
 ) -> None:
     """Activate a version only if it is at least as good as the active one.
 
-    Both models are evaluated on the same fresh simulated set; a candidate with a lower
-    macro-F1 is refused unless --force.
+    Both models are evaluated on the same fresh simulated set (with the detection selection of
+    the training presets: the dips a survey would pass on); a candidate with a lower macro-F1 is
+    refused unless --force.
 
     Example:
 
@@ -448,7 +452,8 @@ def models_promote(
     try:
         candidate = load_model(root, version, expected_feature_version=FEATURE_VERSION)
         current = active_version(root)
-        table = simulated_table(n, seed=seed, n_jobs=jobs, progress=True)
+        table = simulated_table(n, seed=seed, n_jobs=jobs, progress=True,
+                                min_dip_snr=min_dip_snr)
         new = evaluate_model(candidate.estimator, table, classes=list(candidate.card.classes))
         typer.echo(f"candidate {version}: macro-F1 {new['macro_f1']:.4f}")
         if current is not None and current != version:
