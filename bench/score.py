@@ -50,6 +50,8 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__)
     parser.add_argument("--n", type=int, default=300, help="fresh simulated segments")
     parser.add_argument("--registry", type=Path, default=REPO / "models")
+    parser.add_argument("--min-dip-snr", type=float, default=10.0,
+                        help="detection selection of the set (as in the training presets)")
     args = parser.parse_args()
     with threadpool_limits(1):
         model = load_model(args.registry, expected_feature_version=FEATURE_VERSION)
@@ -62,7 +64,7 @@ def main() -> None:
             ms = np.median([_median_ms(lambda s=s: score_segment(s, model), 3) for s in segs])
             print(f"  {n_points:6d} points: {ms:6.1f} ms per segment (features + predict)")
         t0 = time.process_time()
-        table = simulated_table(args.n, seed=2468)
+        table = simulated_table(args.n, seed=2468, min_dip_snr=args.min_dip_snr)
         t_features = (time.process_time() - t0) / args.n
         from training.dataset import feature_matrix
         from training.train import ordered_proba
@@ -76,7 +78,8 @@ def main() -> None:
         y = table["label"].to_numpy(dtype=str)
         m_model = report.evaluate(y, proba, list(model.card.classes))
         m_base = report.evaluate(y, None, list(model.card.classes), y_pred=base)
-        print(f"  fresh simulated set of {args.n} (simulation + features "
+        print(f"  fresh simulated set of {args.n}, dips selected at SNR >= {args.min_dip_snr:g} "
+              f"(simulation + features "
               f"{t_features * 1e3:.1f} ms per segment)")
         print(f"    model    macro-F1 {m_model['macro_f1']:.3f}  ECE {m_model['ece']:.3f}  "
               f"predict {t_predict * 1e3:.2f} ms per segment (batched)")
