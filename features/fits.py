@@ -218,6 +218,15 @@ def _linear1(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[float, float,
     return c, (ca / c if c != 0 else 0.0), max(chi2, 0.0)
 
 
+def _best_dip(u: np.ndarray, y: np.ndarray, w: np.ndarray) -> tuple[int, np.ndarray,
+                                                                  np.ndarray]:
+    """Index of the best dip-shaped (positive amplitude) row of ``u``, with chi^2 and amplitudes
+    of every row (rows that would need a negative amplitude get chi^2 = inf)."""
+    _, a, chi = _linear(u, y, w)
+    chi = np.where(a > 0, chi, np.inf)
+    return int(np.argmin(chi)), chi, a
+
+
 def _linear_tied(u: np.ndarray, amp: np.ndarray | float, y: np.ndarray,
                  w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Best ``c`` and chi^2 for model c (1 - amp u) with the amplitude fixed."""
@@ -463,17 +472,14 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
     durs = d * np.geomspace(0.4, 2.0, 10)
     tt0, dd = np.meshgrid(t0s, durs, indexing="ij")
     u = _box(t[None, :], tt0.reshape(-1, 1), dd.reshape(-1, 1))
-    _, a, chi = _linear(u, y, w)
-    chi = np.where(a > 0, chi, np.inf)
-    k = int(np.argmin(chi))
+    k, chi, a = _best_dip(u, y, w)
     out["box"] = _fit("box", chi[k], 4, n, t0=tt0.flat[k], duration_days=dd.flat[k], depth=a[k])
     # symmetric trapezoid (flat fraction > 0) and V (flat fraction 0): t0 x T14 x flat
     t14s = d * np.geomspace(0.6, 2.5, 9)
     flats = np.array([0.0, 0.25, 0.5, 0.7, 0.85])
     g0, g1, g2 = np.meshgrid(t0s, t14s, flats, indexing="ij")
     u = _trapezoid(t[None, :], g0.reshape(-1, 1), g1.reshape(-1, 1), g2.reshape(-1, 1))
-    _, a, chi = _linear(u, y, w)
-    chi = np.where(a > 0, chi, np.inf)
+    _, chi, a = _best_dip(u, y, w)
     is_v = g2.reshape(-1) == 0.0
     kv = int(np.argmin(np.where(is_v, chi, np.inf)))
     kt = int(np.argmin(np.where(~is_v, chi, np.inf)))
@@ -484,9 +490,7 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
     sigs = d * np.geomspace(0.12, 1.2, 10)
     g0, g1 = np.meshgrid(t0s, sigs, indexing="ij")
     u = _gaussian(t[None, :], g0.reshape(-1, 1), g1.reshape(-1, 1))
-    _c, a, chi = _linear(u, y, w)
-    chi = np.where(a > 0, chi, np.inf)
-    k = int(np.argmin(chi))
+    k, chi, a = _best_dip(u, y, w)
     out["gaussian"] = _fit("gaussian", chi[k], 4, n, t0=g0.flat[k], sigma_days=g1.flat[k],
                            depth=a[k])
     # comet and mirrored comet on a grid of crossing time x tail ratio x head time
@@ -500,9 +504,7 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
         best = (np.inf, 0.0, 0.0, 0.0, 0.0)
         for r in _COMET_R[1::3]:
             u = np.interp(x, _COMET_X, _comet_row(float(r)), left=0.0, right=0.0)
-            _, a, chi = _linear(u, y, w)
-            chi = np.where(a > 0, chi, np.inf)
-            k = int(np.argmin(chi))
+            k, chi, a = _best_dip(u, y, w)
             if chi[k] < best[0]:
                 best = (chi[k], g0.flat[k], g1.flat[k], float(r), a[k])
         name = "comet_mirrored" if mirrored else "comet"
@@ -681,9 +683,7 @@ def _asymmetric(win: Window, start: dict[str, float], method: str) -> dict[str, 
     t_flat = g_tot - t_in - t_out
     u = _asym_trapezoid(t[None, :], g_t1[:, None], t_in[:, None], t_flat[:, None],
                         t_out[:, None])
-    _, a, chi = _linear(u, y, w)
-    chi = np.where(a > 0, chi, np.inf)
-    k = int(np.argmin(chi))
+    k, _, _ = _best_dip(u, y, w)
     x0 = np.array([g_t1[k], t_in[k], t_flat[k], t_out[k]])
     lo = np.array([t[0] - d, 1e-3 * d, 0.0, 1e-3 * d])
     hi = np.array([win.t_mid + d, 6.0 * d, 4.0 * d, 8.0 * d])
