@@ -267,7 +267,7 @@ _PRESETS: dict[str, dict[str, float]] = {
     # n: simulated segments (balanced over the five classes); seed: of the simulation and split;
     # min_dip_snr: planets, binaries and comets are drawn again until their dip reaches this SNR
     # (a survey only passes on dips it detected; training/simulate.py)
-    "default": {"n": 10_000, "seed": 0, "min_dip_snr": 10.0},
+    "default": {"n": 30_000, "seed": 0, "min_dip_snr": 10.0},
     "small": {"n": 1_500, "seed": 0, "min_dip_snr": 10.0},
 }
 
@@ -368,6 +368,131 @@ def _headline(card) -> tuple[str, str]:
             return (f"{f1:.3f}" if f1 is not None else "?", f"{ece:.3f}" if ece is not None
                     else "?")
     return "?", "?"
+
+
+@app.command()
+def serve(
+    host: Annotated[str, typer.Option("--host", help="Address to listen on (beyond loopback "
+                                      "only with API keys).")] = "127.0.0.1",
+    port: Annotated[int, typer.Option("--port", min=0, max=65535)] = 8000,
+    workers: Annotated[int, typer.Option("--workers", min=1, help="Worker processes (about "
+                                         "one per core).")] = 1,
+    registry: Annotated[Path | None, typer.Option(
+        "--registry", help="Model registry (default: ./models, else the shipped one).")] = None,
+    db: Annotated[Path | None, typer.Option(
+        "--db", help="SQLite store of labels (default: ./dipshape-store.sqlite).")] = None,
+    keys_file: Annotated[Path | None, typer.Option(
+        "--keys-file", help="API keys file (lines NAME ROLES SHA256; see `dipshape keys new`)."
+    )] = None,
+) -> None:
+    """Run the REST scoring service (OpenAPI at /docs).
+
+    Every setting can also come from the environment as DIPSHAPE_<NAME> (e.g.
+    DIPSHAPE_MAX_BODY_BYTES, DIPSHAPE_MAX_BATCH, DIPSHAPE_REQUEST_TIMEOUT_S,
+    DIPSHAPE_API_KEYS); options given here win. Without API keys the service runs open and
+    only on loopback.
+
+    Examples:
+
+      dipshape serve --port 8000
+
+      dipshape serve --host 0.0.0.0 --workers 2 --keys-file keys.txt
+    """
+    import os
+
+    import uvicorn
+    from pydantic import ValidationError
+
+    from service.app import check_bind
+    from service.settings import ServiceSettings
+
+    given = {"host": host, "port": port, "workers": workers, "registry": registry, "db": db,
+             "keys_file": keys_file}
+    given = {k: v for k, v in given.items() if v is not None}
+    try:
+        settings = ServiceSettings(**given)
+        check_bind(settings)
+    except ValidationError as exc:
+        raise _fail(ParameterError("invalid_parameter", str(exc))) from exc
+    except DipshapeError as err:
+        raise _fail(err) from err
+    # worker processes rebuild the settings from the environment
+    for key, value in given.items():
+        os.environ[f"DIPSHAPE_{key.upper()}"] = str(value)
+    typer.echo(f"dipshape serving on http://{settings.host}:{settings.port} "
+               f"({settings.workers} worker(s)); OpenAPI at /docs. {CAUTION}", err=True)
+    uvicorn.run("service.app:app_from_env", factory=True, host=settings.host,
+                port=settings.port, workers=settings.workers, log_level="warning")
+
+
+@app.command()
+def plot(
+    path: Annotated[Path, typer.Argument(help="A light-curve file (one segment).")],
+    out: Annotated[Path | None, typer.Option("--out", help="PNG to write (default: "
+                                             "<stem>.png).")] = None,
+    ephemeris: Annotated[str | None, typer.Option(
+        "--ephemeris", help="Known PERIOD,EPOCH,DURATION in days.")] = None,
+    model: Annotated[str | None, typer.Option("--model", help="Model version.")] = None,
+    registry: Annotated[Path | None, typer.Option("--registry")] = None,
+    width: Annotated[int, typer.Option("--width", min=300, max=4000)] = 1200,
+    height: Annotated[int, typer.Option("--height", min=300, max=4000)] = 900,
+) -> None:
+    """Draw the diagnostic plot of a segment: events, shape fits, fold, probabilities.
+
+    Example:
+
+      dipshape plot demo_data/LS-0042-s3.csv --out LS-0042.png
+    """
+    from features.catalog import FEATURE_VERSION
+    from features.io import read_segment
+    from service.plots import diagnostic_png
+    from service.scoring import load_ood, parse_ephemeris, score_segment_with_features
+    from training.registry import load_model
+
+    root = _registry_or_default(registry)
+    try:
+        eph = parse_ephemeris(ephemeris) if ephemeris else None
+        loaded = load_model(root, model, expected_feature_version=FEATURE_VERSION)
+        segment = read_segment(path)
+        result, feats = score_segment_with_features(
+            segment, loaded, ephemeris=eph, ood=load_ood(root, loaded.card.version))
+        png = diagnostic_png(segment, feats, result.to_dict(), width_px=width,
+                             height_px=height)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    target = out or Path(f"{segment.id}.png")
+    target.write_bytes(png)
+    typer.echo(f"{segment.id}: {result.label} ({result.probabilities[result.label]:.2f}); "
+               f"plot written to {target}")
+
+
+keys_app = typer.Typer(help="API keys of the REST service.", no_args_is_help=True,
+                       rich_markup_mode="markdown")
+app.add_typer(keys_app, name="keys")
+
+
+@keys_app.command("new")
+def keys_new(
+    name: Annotated[str, typer.Argument(help="Who the key is for, e.g. broker-a.")],
+    roles: Annotated[str, typer.Option("--roles", help="Comma-separated: score, label, "
+                                       "admin.")] = "score",
+) -> None:
+    """Make a new API key: prints the key (give it to the client, once) and the keys-file line.
+
+    Example:
+
+      dipshape keys new broker-a --roles score,label
+    """
+    from service.auth import hash_key, new_key, parse_keys
+
+    key = new_key()
+    line = f"{name} {roles} {hash_key(key)}"
+    try:
+        parse_keys([line], where="the new key")
+    except DipshapeError as err:
+        raise _fail(err) from err
+    typer.echo(f"key (give it to {name}; it is not stored anywhere): {key}")
+    typer.echo(f"keys-file line: {line}")
 
 
 models_app = typer.Typer(help="List, inspect, activate and promote model versions.",

@@ -51,10 +51,10 @@ from typing import Any
 import numpy as np
 
 from features.catalog import FEATURE_NAMES, FEATURE_VERSION
-from features.errors import DipshapeError, ModelError, ParameterError
+from features.errors import DipshapeError, ModelError, ParameterError, SegmentError
 from features.events import Ephemeris
 from features.io import SUPPORTED_FORMATS, read_segments
-from features.pipeline import extract
+from features.pipeline import Features, extract
 from features.segment import Segment
 from training.classes import CLASSES
 from training.registry import LoadedModel, read_card
@@ -80,6 +80,7 @@ __all__ = [
     "score_error",
     "score_path",
     "score_segment",
+    "score_segment_with_features",
 ]
 
 _log = logging.getLogger(__name__)
@@ -298,6 +299,33 @@ def score_segment(
 ) -> Result:
     """Measure and classify one segment.
 
+    Same parameters and errors as :func:`score_segment_with_features`, which this calls.
+
+    Returns
+    -------
+    Result
+
+    Examples
+    --------
+    >>> model = load_model(Path("models"), expected_feature_version=FEATURE_VERSION)
+    ... # doctest: +SKIP
+    >>> score_segment(read_segment("LS-0042.csv"), model).label  # doctest: +SKIP
+    'exocomet'
+    """
+    return score_segment_with_features(segment, model, ephemeris=ephemeris, ood=ood,
+                                       ood_max_outside=ood_max_outside)[0]
+
+
+def score_segment_with_features(
+    segment: Segment,
+    model: LoadedModel,
+    *,
+    ephemeris: Ephemeris | None = None,
+    ood: Mapping[str, Any] | None = None,
+    ood_max_outside: int = OOD_MAX_OUTSIDE,
+) -> tuple[Result, Features]:
+    """Measure and classify one segment, returning the measurement too (for plots).
+
     Parameters
     ----------
     segment : Segment
@@ -314,7 +342,9 @@ def score_segment(
 
     Returns
     -------
-    Result
+    result : Result
+    features : Features
+        What :func:`features.pipeline.extract` measured (events, fits, flags).
 
     Raises
     ------
@@ -354,7 +384,7 @@ def score_segment(
             _log.info("%s: %d features outside the training range: %s", segment.id,
                       len(outside), ", ".join(outside))
     eph = feats.ephemeris
-    return Result(
+    result = Result(
         schema_version=SCHEMA_VERSION,
         id=segment.id,
         label=classes[int(np.argmax(proba))],
@@ -373,6 +403,7 @@ def score_segment(
                                 "sha256": model.sha256}),
         elapsed_ms=round((time.perf_counter() - start) * 1e3, 3),
     )
+    return result, feats
 
 
 # --------------------------------------------------------------------------------------------
@@ -630,6 +661,7 @@ def score_path(
     *,
     ephemeris: Ephemeris | None = None,
     ood: Mapping[str, Any] | None = None,
+    max_points: int | None = None,
 ) -> list[dict[str, Any]]:
     """Score every segment of one file; failures become error objects, never exceptions.
 
@@ -643,6 +675,9 @@ def score_path(
         Applied to every segment of the file.
     ood : Mapping, optional
         Training-range table (:func:`load_ood`).
+    max_points : int, optional
+        A segment with more points becomes a ``too_many_points`` error object (the REST
+        service's limit).
 
     Returns
     -------
@@ -665,6 +700,11 @@ def score_path(
         return [score_error(stem, err)]
     lines: list[dict[str, Any]] = []
     for seg in segments:
+        if max_points is not None and seg.n_points > max_points:
+            lines.append(score_error(seg.id, SegmentError(
+                "too_many_points", f"segment {seg.id!r} has {seg.n_points} points; the limit "
+                f"is {max_points}")))
+            continue
         try:
             lines.append(score_segment(seg, model, ephemeris=ephemeris, ood=ood).to_dict())
         except ModelError:

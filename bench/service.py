@@ -1,0 +1,177 @@
+"""REST service speed: requests/s, p50/p99 latency, overhead over in-process scoring, RSS.
+
+Starts ``dipshape serve`` on a free loopback port with 1 and then 2 worker processes, sends
+2,000-point simulated segments to ``POST /v1/score`` from concurrent clients (bounded in
+request count and in time), and prints, measured in this run:
+
+- in-process scoring latency (``score_segment``, the same segments) as the reference;
+- per worker count: requests/s, p50 and p99 latency with as many clients as workers, and with
+  one client the ratio of service latency to in-process latency (goal <= 1.5x);
+- peak resident memory (VmHWM from /proc) of each worker process (goal <= 300 MB).
+
+    .venv/bin/python bench/service.py [--requests 120] [--max-seconds 60]
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+# bench/features.py is named like the package: keep this folder off the import path
+sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != Path(__file__).parent.resolve()]
+
+import argparse  # noqa: E402
+import math  # noqa: E402
+import os  # noqa: E402
+import signal  # noqa: E402
+import socket  # noqa: E402
+import subprocess  # noqa: E402
+import tempfile  # noqa: E402
+import time  # noqa: E402
+from concurrent.futures import ThreadPoolExecutor  # noqa: E402
+
+import httpx  # noqa: E402
+import numpy as np  # noqa: E402
+
+from features.catalog import FEATURE_VERSION  # noqa: E402
+from features.segment import make_segment  # noqa: E402
+from service.scoring import load_ood, score_segment  # noqa: E402
+from training.registry import load_model  # noqa: E402
+from training.simulate import simulate_segment  # noqa: E402
+
+REPO = Path(__file__).resolve().parents[1]
+CLASSES = ("planet", "eclipsing_binary", "exocomet", "variability", "systematic")
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _segments(n: int) -> list[dict]:
+    out = []
+    for i in range(n):
+        # 10-min cadence over 13.9 d: 2,000 points
+        sim = simulate_segment(CLASSES[i % 5], np.random.default_rng(1000 + i), id=f"LS-b{i}",
+                               cadence_min=10.0, window_days=13.9)
+        out.append({"id": sim.id, "time": sim.time.tolist(),
+                    "flux": [None if not math.isfinite(f) else f for f in sim.flux.tolist()]})
+    return out
+
+
+def _in_process_ms(segments: list[dict], registry: Path) -> float:
+    model = load_model(registry, expected_feature_version=FEATURE_VERSION)
+    ood = load_ood(registry, model.card.version)
+    times = []
+    for body in segments:
+        flux = np.array([np.nan if f is None else f for f in body["flux"]])
+        seg = make_segment(np.array(body["time"]), flux, id=body["id"])
+        t0 = time.perf_counter()
+        score_segment(seg, model, ood=ood)
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times) * 1e3)
+
+
+def _children(pid: int) -> list[int]:
+    try:
+        text = Path(f"/proc/{pid}/task/{pid}/children").read_text()
+    except OSError:
+        return []
+    kids = [int(x) for x in text.split()]
+    return kids + [g for k in kids for g in _children(k)]
+
+
+def _hwm_mb(pid: int) -> float:
+    try:
+        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return float("nan")
+
+
+def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, registry: Path,
+         ref_ms: float) -> None:
+    port = _free_port()
+    db = Path(tempfile.mkdtemp()) / "bench.sqlite"
+    env = dict(os.environ, DIPSHAPE_MAX_QUEUE="1000")
+    proc = subprocess.Popen(
+        [str(Path(sys.executable).parent / "dipshape"), "serve", "--port", str(port), "--workers",
+         str(workers), "--registry", str(registry), "--db", str(db)],
+        env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=REPO)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        with httpx.Client(base_url=base, timeout=60.0) as c:
+            deadline = time.monotonic() + 60
+            while time.monotonic() < deadline:
+                try:
+                    if c.get("/readyz").status_code == 200:
+                        break
+                except httpx.TransportError:
+                    pass
+                time.sleep(0.2)
+            else:
+                raise SystemExit("the service did not become ready in 60 s")
+            for body in segments[:4]:  # warm-up
+                c.post("/v1/score", json=body).raise_for_status()
+            # one client: the service's overhead over in-process scoring
+            single = []
+            for body in segments[: min(40, len(segments))]:
+                t0 = time.perf_counter()
+                c.post("/v1/score", json=body).raise_for_status()
+                single.append(time.perf_counter() - t0)
+        single_ms = float(np.median(single) * 1e3)
+
+        def one(i: int) -> tuple[float, int]:
+            with httpx.Client(base_url=base, timeout=60.0) as cc:
+                t0 = time.perf_counter()
+                r = cc.post("/v1/score", json=segments[i % len(segments)])
+                return time.perf_counter() - t0, r.status_code
+
+        start = time.perf_counter()
+        latencies, errors = [], 0
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            futures = [pool.submit(one, i) for i in range(n_requests)]
+            for f in futures:
+                remaining = max_s - (time.perf_counter() - start)
+                if remaining <= 0:
+                    f.cancel()
+                    continue
+                lat, status = f.result(timeout=remaining)
+                latencies.append(lat)
+                errors += status != 200
+        wall = time.perf_counter() - start
+        lat = np.array(latencies) * 1e3
+        rss = [_hwm_mb(p) for p in _children(proc.pid)] or [_hwm_mb(proc.pid)]
+        print(f"{workers} worker(s), {workers} client(s): {len(lat) / wall:6.1f} req/s, "
+              f"p50 {np.percentile(lat, 50):6.1f} ms, p99 {np.percentile(lat, 99):6.1f} ms, "
+              f"{errors} errors in {len(lat)} requests")
+        print(f"  one client: p50 {single_ms:.1f} ms vs in-process {ref_ms:.1f} ms -> "
+              f"{single_ms / ref_ms:.2f}x (goal <= 1.5x)")
+        print("  peak RSS per process [MB]: " + ", ".join(f"{r:.0f}" for r in rss)
+              + " (goal <= 300)")
+    finally:
+        proc.send_signal(signal.SIGINT)
+        try:
+            proc.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__)
+    parser.add_argument("--requests", type=int, default=120)
+    parser.add_argument("--max-seconds", type=float, default=60.0)
+    parser.add_argument("--registry", type=Path, default=REPO / "models")
+    args = parser.parse_args()
+    segments = _segments(40)
+    ref_ms = _in_process_ms(segments, args.registry)
+    print(f"2,000-point segments; in-process scoring p50 {ref_ms:.1f} ms")
+    for workers in (1, 2):
+        _run(workers, segments, args.requests, args.max_seconds, args.registry, ref_ms)
+
+
+if __name__ == "__main__":
+    main()

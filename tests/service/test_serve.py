@@ -1,0 +1,96 @@
+"""`dipshape serve` as a real uvicorn process on loopback, reached with the Python client."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import httpx
+import numpy as np
+import pytest
+
+from service.client import DipshapeClient
+from training.simulate import simulate_segment
+
+REPO = Path(__file__).resolve().parents[2]
+DIPSHAPE = str(Path(sys.executable).parent / "dipshape")
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("serve")
+    registry = tmp / "models"
+    shutil.copytree(REPO / "models" / "default-v2", registry / "default-v2")
+    (registry / "ACTIVE").write_text("default-v2\n")
+    port = _free_port()
+    env = dict(os.environ, DIPSHAPE_MAX_BODY_BYTES=str(1024 * 1024))
+    proc = subprocess.Popen([DIPSHAPE, "serve", "--port", str(port), "--registry",
+                             str(registry), "--db", str(tmp / "store.sqlite")],
+                            env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
+    base = f"http://127.0.0.1:{port}"
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        try:
+            if httpx.get(base + "/readyz").status_code == 200:
+                break
+        except httpx.TransportError:
+            pass
+        if proc.poll() is not None:
+            pytest.fail(f"dipshape serve exited: {proc.stdout.read().decode()}")
+        time.sleep(0.2)
+    else:
+        proc.kill()
+        pytest.fail("dipshape serve did not become ready within 60 s")
+    yield base
+    proc.send_signal(signal.SIGINT)
+    try:
+        proc.wait(timeout=20)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+
+
+def test_scores_over_real_http(server):
+    sim = simulate_segment("eclipsing_binary", np.random.default_rng(3), id="LS-0003-s1",
+                           cadence_min=10.0, window_days=14.0, min_dip_snr=30.0)
+    with DipshapeClient(server) as client:
+        assert client.health() and client.ready()
+        result = client.score(sim.time, sim.flux, sim.flux_err, id=sim.id)
+        assert result["id"] == "LS-0003-s1"
+        assert set(result["probabilities"]) >= {"planet", "eclipsing_binary", "exocomet",
+                                                "variability", "systematic"}
+        assert client.active_model()["version"] == "default-v2"
+
+
+def test_chunked_body_over_the_limit_is_413(server):
+    # RFC 9112 §7.1 chunked transfer coding: no Content-Length, so only counting the bytes
+    # actually read can enforce the limit
+    def chunks():
+        yield b'{"time": ['
+        for _ in range(200):
+            yield b"1.0," * 2000
+        yield b"1.0]}"
+
+    r = httpx.post(server + "/v1/score", content=chunks(),
+                   headers={"Content-Type": "application/json"})
+    assert r.status_code == 413
+    assert r.json()["error"] == "body_too_large"
+
+
+def test_refuses_to_listen_beyond_loopback_without_keys(tmp_path):
+    proc = subprocess.run([DIPSHAPE, "serve", "--host", "0.0.0.0", "--port", "0", "--db",
+                           str(tmp_path / "s.sqlite")], capture_output=True, text=True,
+                          timeout=60)
+    assert proc.returncode == 2
+    assert "open_bind_refused" in proc.stderr
