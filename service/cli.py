@@ -90,64 +90,88 @@ def simulate(
 
 @app.command()
 def demo(
-    out: Annotated[Path, typer.Option("--out", help="Folder for the demo's pictures.")] = Path(
+    data: Annotated[Path, typer.Option("--data", help="Folder of light curves to score.")] = Path(
+        "demo_data"),
+    out: Annotated[Path, typer.Option("--out", help="Folder for the diagnostic PNGs.")] = Path(
         "demo_out"),
-    seed: Annotated[int, typer.Option("--seed")] = 7,
     registry: Annotated[Path | None, typer.Option(
         "--registry", help="Model registry (default: ./models, else the shipped one).")] = None,
 ) -> None:
-    """Simulate segments of a fictional survey, score them with the shipped model, draw them.
+    """The main job end to end: start the REST service on a free loopback port, score every
+    file of --data through it with the Python client, print a table, write one diagnostic PNG
+    per segment to --out, stop the service.
 
-    Each row shows the true class, the label the model gives with its probability, the
-    best-fitting shape family by BIC, a few shape measurements and the flags; a gallery PNG of
-    the segments goes to --out.
+    The shipped demo_data/ holds invented segments of the fictional Lumen Survey; its
+    labels.csv, when present, gives the class a vetter should see (column "expected").
 
     Example:
 
-      dipshape demo --out demo_out
+      dipshape demo --data demo_data --out demo_out
     """
+    import csv
+    import tempfile
+
     from rich.console import Console
     from rich.table import Table
 
-    from features.catalog import FEATURE_VERSION
-    from features.segment import make_segment
-    from service.scoring import load_ood, score_segment
-    from training.gallery import plot_gallery
-    from training.registry import load_model
-    from training.simulate import simulate_dataset
+    from features.io import read_segment
+    from service.client import DipshapeClient
+    from service.local import running_service
+    from service.scoring import find_inputs
+    from service.settings import ServiceSettings
 
     root = _registry_or_default(registry)
+    expected: dict[str, str] = {}
+    if (data / "labels.csv").is_file():
+        with (data / "labels.csv").open(newline="") as fh:
+            expected = {r["id"]: r["label"] for r in csv.DictReader(fh)}
     try:
-        model = load_model(root, expected_feature_version=FEATURE_VERSION)
-        ood = load_ood(root, model.card.version)
-        segments = simulate_dataset(20, seed=seed, id_prefix="LS-demo-")
-        png = plot_gallery(segments, out / "simulated_examples.png")
-        results = [score_segment(make_segment(s.time, s.flux, s.flux_err, id=s.id), model,
-                                 ood=ood) for s in segments]
+        files = find_inputs([data])
     except DipshapeError as err:
         raise _fail(err) from err
-    table = Table(title=f"Simulated segments of the (fictional) Lumen Survey, scored by "
-                        f"{model.card.version}")
-    for col in ("id", "true class", "label", "p", "SNR", "skewness", "ingress/egress",
-                "odd/even", "flags"):
+    out.mkdir(parents=True, exist_ok=True)
+    rows = []
+    with tempfile.TemporaryDirectory(prefix="dipshape-demo-") as tmp:
+        settings = ServiceSettings(registry=root, db=Path(tmp) / "store.sqlite")
+        try:
+            with running_service(settings) as base_url, DipshapeClient(base_url) as client:
+                version = client.active_model()["version"]
+                typer.echo(f"service up at {base_url} (model {version}); scoring "
+                           f"{len(files)} files", err=True)
+                for path in files:
+                    for result in client.score_file(path):
+                        png = None
+                        if "error" not in result:
+                            target = out / f"{result['id']}.png"
+                            target.write_bytes(client.plot(read_segment(path)))
+                            png = target
+                        rows.append((result, png))
+        except DipshapeError as err:
+            raise _fail(err) from err
+    table = Table(title=f"Lumen Survey (fictional) segments scored through the REST service "
+                        f"by {version}")
+    for col in ("id", "label", "p", "expected", "flags"):
         table.add_column(col)
-
-    def num(x: float | None) -> str:
-        return "-" if x is None or x != x else f"{x:.2f}"
-
-    right = 0
-    for s, r in zip(segments, results, strict=True):
-        right += r.label == s.label
-        mark = "" if r.label == s.label else " (x)"
-        table.add_row(s.id, s.label, r.label + mark, f"{r.probabilities[r.label]:.2f}",
-                      f"{s.snr:.0f}", num(r.features["skewness"]),
-                      num(r.features["ingress_egress_ratio"]), num(r.features["odd_even_sigma"]),
-                      ", ".join(r.flags))
-    console = Console(width=max(Console().width, 150))
+    right = failed = 0
+    for result, _png in rows:
+        want = expected.get(result["id"], "-")
+        if "error" in result:
+            failed += 1
+            table.add_row(result["id"], f"error {result['error']}", "", want, result["detail"])
+            continue
+        label = result["label"]
+        right += label == want
+        mark = "" if want in ("-", label) else " (x)"
+        table.add_row(result["id"], label + mark, f"{result['probabilities'][label]:.2f}",
+                      want, ", ".join(result["flags"]))
+    console = Console(width=max(Console().width, 120))
     console.print(table)
-    console.print(f"{right} of {len(segments)} labels agree with the simulated truth; gallery "
-                  f"written to {png}")
+    if expected:
+        console.print(f"{right} of {len(rows)} segments get the class a vetter should see")
+    console.print(f"diagnostic plots written to {out}/")
     console.print(CAUTION)
+    if failed:
+        raise typer.Exit(EXIT_FAILURE)
 
 
 @app.command()

@@ -736,7 +736,8 @@ def _by_snr(snr: Any, n: int, snr_bins: Sequence[float], core) -> dict[str, Any]
 
 
 def _by_cadence(cadence_min: Any, n: int, core) -> dict[str, Any]:
-    values = _sample_array(cadence_min, n, what="cadence_min")
+    # measured cadences (median time steps) differ in the last digits: group to 0.1 min
+    values = np.round(_sample_array(cadence_min, n, what="cadence_min"), 1)
     finite = np.isfinite(values)
     bins = []
     for value in np.unique(values[finite]):

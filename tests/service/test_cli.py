@@ -1,4 +1,4 @@
-"""The `dipshape` command line: simulate and demo (score has its own test module)."""
+"""The `dipshape` command line: simulate, demo, keys (score has its own test module)."""
 
 from __future__ import annotations
 
@@ -56,10 +56,25 @@ def test_bad_arguments_give_the_error_code_and_usage_exit(tmp_path):
     assert "unsupported_format" in result.output
 
 
-def test_demo_scores_with_the_shipped_model_and_shows_the_caution(tmp_path):
-    shipped = Path(__file__).resolve().parents[2] / "models"
-    result = runner.invoke(app, ["demo", "--out", str(tmp_path), "--registry", str(shipped)])
+def test_demo_scores_the_demo_data_through_the_rest_service(tmp_path):
+    repo = Path(__file__).resolve().parents[2]
+    result = runner.invoke(app, ["demo", "--data", str(repo / "demo_data"), "--out",
+                                 str(tmp_path), "--registry", str(repo / "models")])
     assert result.exit_code == 0, result.output
     assert "triage, not a discovery" in result.output
-    assert "labels agree with the simulated truth" in result.output
-    assert (tmp_path / "simulated_examples.png").is_file()
+    assert "scored through the REST service" in result.output
+    ids = sorted(p.stem for p in (repo / "demo_data").iterdir()
+                 if p.suffix in (".csv", ".fits") and p.name != "labels.csv")
+    # one diagnostic PNG per segment (PNG signature: ISO/IEC 15948 §5.2)
+    assert sorted(p.stem for p in tmp_path.glob("*.png")) == ids
+    assert all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in tmp_path.glob("*.png"))
+    assert f"{len(ids)} of {len(ids)} segments get the class a vetter should see" in \
+        result.output
+
+
+def test_demo_fails_cleanly_without_a_model(tmp_path):
+    repo = Path(__file__).resolve().parents[2]
+    result = runner.invoke(app, ["demo", "--data", str(repo / "demo_data"), "--out",
+                                 str(tmp_path / "o"), "--registry", str(tmp_path / "none")])
+    assert result.exit_code != 0
+    assert "model_not_ready" in result.output

@@ -233,12 +233,21 @@ def test_snr_bins_are_closed_below_and_open_above():
     np.testing.assert_array_equal(counts[:4], np.histogram(finite, bins=[0, 10, 15, 30, 100])[0])
 
 
+def rng_jitter(n: int) -> np.ndarray:
+    return np.random.default_rng(3).uniform(-1e-6, 1e-6, n)
+
+
 def test_metrics_by_cadence(sample):
     y_true, proba, _, cadence = sample
     m = evaluate(y_true, proba, SIX, cadence_min=cadence)
     groups = m["by_cadence"]["bins"]
     assert [g["cadence_min"] for g in groups] == [2.0, 10.0, 30.0]
     assert m["by_cadence"]["n_outside"] == 3
+    # measured cadences that differ in the last digits fall in one group
+    jittered = cadence + rng_jitter(cadence.size)
+    again = evaluate(y_true, proba, SIX, cadence_min=jittered)["by_cadence"]["bins"]
+    assert [g["label"] for g in again] == ["2", "10", "30"]
+    assert [g["n_samples"] for g in again] == [g["n_samples"] for g in groups]
     y_pred = _predicted(proba)
     for g in groups:
         mask = cadence == g["cadence_min"]
