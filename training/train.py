@@ -43,6 +43,7 @@ __all__ = [
     "OOD_FILE",
     "OOD_QUANTILES",
     "OOD_RARE_NAN_FRACTION",
+    "ORIGIN_COLUMN",
     "calibrate",
     "evaluate_model",
     "fit",
@@ -54,6 +55,10 @@ __all__ = [
 ]
 
 logger = logging.getLogger(__name__)
+
+ORIGIN_COLUMN = "origin"
+"""Optional table column naming where each row came from (e.g. ``"group"``, ``"simulated"``);
+when the test split mixes origins, the card and the report also evaluate each one apart."""
 
 DEFAULT_PARAMS: Mapping[str, Any] = MappingProxyType({
     # scikit-learn's default step; early stopping picks the number of rounds
@@ -437,7 +442,8 @@ def train_and_save(
         "uncalibrated": evaluate_model(model, test, classes=classes),
         "baseline": _evaluate_baseline(test, classes),
     }
-    comparison = report.compare(evaluations)
+    by_origin = _evaluate_by_origin(calibrated, test, classes)
+    comparison = report.compare({**evaluations, **by_origin})
     model_bytes = len(sio.dumps(calibrated))
     if model_bytes > MAX_MODEL_BYTES:
         logger.warning("model.skops is %.1f MB (> %.0f MB): lower max_iter or max_leaf_nodes",
@@ -467,6 +473,23 @@ def train_and_save(
 
 # --------------------------------------------------------------------------------------------
 # private helpers
+
+
+def _evaluate_by_origin(model: Any, test: pd.DataFrame,
+                        classes: Sequence[str]) -> dict[str, dict[str, Any]]:
+    """The calibrated model on each origin's part of the test split (group labels, simulated).
+
+    Only when the table mixes origins (column ``origin``, see :data:`ORIGIN_COLUMN`), so that a
+    group sees how the model does on its own held-out labels apart from the simulated ones.
+    """
+    if ORIGIN_COLUMN not in test.columns:
+        return {}
+    origins = list(dict.fromkeys(test[ORIGIN_COLUMN].astype(str)))
+    if len(origins) < 2:
+        return {}
+    return {f"calibrated on {origin} rows": evaluate_model(
+                model, test[test[ORIGIN_COLUMN].astype(str) == origin], classes=classes)
+            for origin in origins}
 
 
 def _check_xy(X: Any, y: Any) -> tuple[np.ndarray, np.ndarray]:

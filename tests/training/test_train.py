@@ -31,6 +31,7 @@ from training.registry import MODEL_FILE, load_model
 from training.train import (
     MAX_MODEL_BYTES,
     OOD_FILE,
+    ORIGIN_COLUMN,
     calibrate,
     evaluate_model,
     fit,
@@ -316,3 +317,22 @@ def test_train_and_save_takes_labels_beyond_the_five(tables, tmp_path):
     loaded = load_model(tmp_path, "six-1", expected_feature_version=FEATURE_VERSION)
     proba = loaded.predict_proba(feature_matrix(part.iloc[:5]))
     assert proba.shape == (5, 6) and np.allclose(proba.sum(axis=1), 1.0)
+
+
+def test_mixed_origins_are_also_evaluated_apart(tables, tmp_path):
+    """Group labels plus simulations: the card compares the model on each origin's test rows."""
+    table, _ = tables
+    part = table.iloc[:600].copy()
+    part[ORIGIN_COLUMN] = np.where(np.arange(len(part)) % 3 == 0, "group", "simulated")
+    card = train_and_save(part, registry=tmp_path, name="mixed", seed=1, command="test",
+                          version="mixed-1", params={"max_iter": 15}, importance_rows=40)
+    rows = {m["name"]: m for m in card.metrics["models"]}
+    group, sim = rows["calibrated on group rows"], rows["calibrated on simulated rows"]
+    assert group["n_samples"] + sim["n_samples"] == rows["calibrated"]["n_samples"]
+    assert group["n_samples"] == pytest.approx(rows["calibrated"]["n_samples"] / 3, rel=0.25)
+    # one origin only: no extra rows
+    plain = train_and_save(table.iloc[:600].copy(), registry=tmp_path, name="plain", seed=1,
+                           command="test", version="plain-1", params={"max_iter": 15},
+                           importance_rows=40)
+    assert [m["name"] for m in plain.metrics["models"]] == ["calibrated", "uncalibrated",
+                                                            "baseline"]
