@@ -28,11 +28,12 @@ test-slow: $(STAMP)
 	$(PY) -m pytest -m slow $(PYTEST_ARGS)
 
 lint: $(STAMP)
-	$(BIN)/ruff check features training service tests bench
+	$(BIN)/ruff check features training service tests bench demo_data
 
 bench: $(STAMP)
 	$(PY) bench/simulate.py
-	@for f in bench/detect.py bench/features.py bench/score.py; do \
+	@for f in bench/detect.py bench/features.py bench/score.py bench/service.py bench/load.py \
+		bench/batch.py bench/real_lc.py; do \
 		if [ -f $$f ]; then $(PY) $$f; fi; \
 	done
 

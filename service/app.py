@@ -21,9 +21,10 @@ GET      /healthz, /readyz, /metrics  -       alive, model loaded, Prometheus te
 =======  ===========================  ======  =============================================
 
 Scoring is CPU-bound and runs in worker threads (``max_concurrency`` per process) off the event
-loop; requests beyond ``max_queue`` waiting get 503 ``overloaded`` with ``Retry-After`` at
-once. A request whose scoring exceeds ``request_timeout_s`` gets 504 ``timeout`` (its thread
-finishes in the background: Python threads cannot be killed). Errors are always
+loop; a working request beyond ``max_concurrency + max_queue`` in progress gets 503
+``overloaded`` with ``Retry-After`` at once, before its body is read. A request whose scoring
+exceeds ``request_timeout_s`` gets 504 ``timeout`` (its thread finishes in the background:
+Python threads cannot be killed). Errors are always
 ``{"error": code, "detail": text}`` with the codes of :mod:`service.errors`; no stack trace
 reaches a client.
 
@@ -224,6 +225,46 @@ class _Gate:
             self.in_flight -= 1
 
 
+_ADMITTED_ROUTES = frozenset({"/v1/score", "/v1/score/batch", "/v1/score/file", "/v1/plot",
+                              "/v1/labels"})
+"""POST routes whose work goes through the gate, so they are admitted (or refused) first."""
+
+
+class _Admission:
+    """Pure ASGI: refuse work beyond ``concurrency + queue`` before reading any body.
+
+    A request counts from its start to the end of its response, so bodies still being read
+    are counted too, and a refusal costs neither an upload nor a parse.
+    """
+
+    def __init__(self, app: Any, state: _State) -> None:
+        self.app = app
+        self.state = state
+        self.in_flight = 0
+
+    async def __call__(self, scope: Any, receive: Any, send: Any) -> None:
+        if scope["type"] != "http" or scope.get("method") != "POST" \
+                or scope.get("path") not in _ADMITTED_ROUTES:
+            await self.app(scope, receive, send)
+            return
+        gate = self.state.gate
+        if self.in_flight >= gate.capacity:
+            err = ServiceError("overloaded", f"{self.in_flight} requests are in progress or "
+                               f"waiting; retry after {gate.retry_after_s} s")
+            body = json.dumps(http_body(err)).encode()
+            await send({"type": "http.response.start", "status": http_status(err), "headers": [
+                (b"content-type", b"application/json"),
+                (b"content-length", str(len(body)).encode()),
+                (b"retry-after", str(gate.retry_after_s).encode())]})
+            await send({"type": "http.response.body", "body": body})
+            return
+        self.in_flight += 1
+        try:
+            await self.app(scope, receive, send)
+        finally:
+            self.in_flight -= 1
+
+
 # --------------------------------------------------------------------------------------------
 # The app
 # --------------------------------------------------------------------------------------------
@@ -328,6 +369,7 @@ def create_app(settings: ServiceSettings | None = None) -> FastAPI:
                            allow_methods=["GET", "POST"], allow_headers=[API_KEY_HEADER,
                                                                          "Content-Type"])
     _add_error_handlers(app, state)
+    app.add_middleware(_Admission, state=state)  # inside the metrics, so refusals are counted
     _add_metrics_middleware(app, state)
     _add_routes(app, state)
     return app
@@ -431,7 +473,8 @@ def _add_metrics_middleware(app: FastAPI, state: _State) -> None:
             return response
         finally:
             route = request.scope.get("route")
-            path = getattr(route, "path", None) or "unmatched"
+            path = getattr(route, "path", None) or (
+                request.url.path if request.url.path in _ADMITTED_ROUTES else "unmatched")
             state.metrics.observe_request(path, request.method, status,
                                           time.perf_counter() - start)
 

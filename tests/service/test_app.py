@@ -24,7 +24,7 @@ from fastapi.testclient import TestClient
 
 from features.catalog import FEATURE_VERSION
 from features.segment import make_segment
-from service.app import ModelHolder, _Gate, check_bind, create_app
+from service.app import ModelHolder, _Admission, _Gate, check_bind, create_app
 from service.auth import hash_key
 from service.errors import ServiceError
 from service.scoring import load_ood, result_schema, score_segment
@@ -413,11 +413,21 @@ def test_overloaded_response_has_retry_after(registry, tmp_path, planet):
                                retry_after_s=3)
     app = create_app(settings)
     with TestClient(app, raise_server_exceptions=False) as c:
-        app.state.dipshape.gate.in_flight = 1  # as if one request held the only slot
+        admission = app.middleware_stack
+        while not isinstance(admission, _Admission):  # find it in the ASGI stack
+            admission = admission.app
+        admission.in_flight = 1  # as if one request held the only place
         r = c.post("/v1/score", json=planet)
         _assert_error(r, 503, "overloaded")
         assert r.headers["retry-after"] == "3"
-        app.state.dipshape.gate.in_flight = 0
+        # refused before the body is read: even a malformed body gets the 503
+        _assert_error(c.post("/v1/score", content=b"{not json",
+                             headers={"Content-Type": "application/json"}), 503, "overloaded")
+        assert c.get("/healthz").status_code == 200  # probes are never refused
+        admission.in_flight = 0
+        assert c.post("/v1/score", json=planet).status_code == 200
+        text = c.get("/metrics").text
+        assert 'route="/v1/score",status="503"' in text
 
 
 # -- metrics and docs -----------------------------------------------------------------------
