@@ -35,6 +35,7 @@ Column names (CSV, Parquet, FITS) are matched case-insensitively; the first alia
 
 from __future__ import annotations
 
+import dataclasses
 import gzip
 import json
 import logging
@@ -707,6 +708,10 @@ def _raws_from_frame(frame: Any, opts: _Options, path: Path, fmt: str) -> list[_
             seg_id=label,
             extra_meta={"segment_id_col": id_col},
         )
+        if raw.flux_err is not None and not np.isfinite(raw.flux_err).any():
+            # a long table shares one flux_err column: a segment without errors has it empty,
+            # which means "estimate them", as an absent column does
+            raw = dataclasses.replace(raw, flux_err=None)
         raws.append(raw)
     return raws
 

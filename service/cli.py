@@ -13,7 +13,7 @@ from typing import Annotated
 import typer
 
 from features.errors import DipshapeError, ParameterError
-from service.errors import EXIT_FAILURE, cli_exit_code, cli_message
+from service.errors import EXIT_FAILURE, EXIT_INTERRUPTED, cli_exit_code, cli_message
 
 __all__ = ["app", "main"]
 
@@ -176,12 +176,13 @@ def demo(
 
 @app.command()
 def score(
-    paths: Annotated[list[Path], typer.Argument(
-        metavar="PATH", help="Light-curve files (CSV, JSON, FITS, Parquet) or folders of them.",
-        show_default=False)],
-    out: Annotated[Path | None, typer.Option(
-        "--out", "-o", help="Write the JSON lines to this file (default: standard output).",
-        show_default=False)] = None,
+    paths: Annotated[list[Path] | None, typer.Argument(
+        metavar="PATH", help="Light-curve files (CSV, JSON, FITS, Parquet), folders of them, "
+        "glob patterns or manifests (batch mode).", show_default=False)] = None,
+    out: Annotated[str | None, typer.Option(
+        "--out", "-o", metavar="FILE|DIR/",
+        help="Write the JSON lines to this file (default: standard output); in batch mode the "
+        "folder of the parts.", show_default=False)] = None,
     model_version: Annotated[str | None, typer.Option(
         "--model", "-m", metavar="VERSION",
         help="Model version to score with (default: the registry's active version).",
@@ -195,6 +196,27 @@ def score(
         help="Known period, mid-transit epoch and duration in days (the files' own time "
         "system), applied to every segment; no period is searched.",
         show_default=False)] = None,
+    scheduler: Annotated[str | None, typer.Option(
+        "--scheduler", metavar="ADDRESS", help="Batch mode on an existing Dask cluster, e.g. "
+        "tcp://10.0.0.5:8786.", show_default=False)] = None,
+    workers: Annotated[int | None, typer.Option(
+        "--workers", min=1, metavar="N", help="Batch mode on a local Dask cluster of N worker "
+        "processes (one thread each; about one per core).", show_default=False)] = None,
+    chunk_size: Annotated[int | None, typer.Option(
+        "--chunk-size", min=1, metavar="N", help="Batch mode: segments per chunk, i.e. per "
+        "task and per part [default: 64].", show_default=False)] = None,
+    fmt: Annotated[str | None, typer.Option(
+        "--format", metavar="parquet|jsonl", help="Batch mode: format of the parts "
+        "[default: parquet].", show_default=False)] = None,
+    resume: Annotated[bool, typer.Option(
+        "--resume", help="Batch mode: keep the parts already in DIR and score the missing "
+        "chunks; refused when the inputs, chunking or model differ.")] = False,
+    stdin: Annotated[bool, typer.Option(
+        "--stdin", help="Read segment JSON lines from standard input and write result lines "
+        "to standard output, in order, one flushed line each.")] = False,
+    progress: Annotated[bool | None, typer.Option(
+        "--progress/--no-progress", help="Progress bar on standard error [default: only on "
+        "a terminal].", show_default=False)] = None,
 ) -> None:
     """Score light curves: one JSON object per segment, one per line.
 
@@ -211,9 +233,30 @@ def score(
     elapsed_ms, are identical from run to run. A progress bar goes to standard error when it
     is a terminal.
 
+    **Batch mode** applies when --scheduler, --workers, --chunk-size, --format or --resume is
+    given, or when --out ends with a slash: the segments are cut into chunks, each scored as
+    one task and written to DIR as one part (part-00000.parquet... or .jsonl), complete or
+    not at all; DIR also gets manifest.json (inputs, chunking, model) and summary.json
+    (counts by error code). A Parquet part holds the columns id, input, label, error,
+    model_version and result_json (the exact line above); a JSON-lines part holds the lines.
+    --scheduler runs on an existing Dask cluster (the workers need dipshape installed, not the
+    client's files: the client sends each chunk's data and writes the parts); --workers N
+    starts a local one; a job of a single chunk, or without either option, runs in this
+    process. Batch mode also takes glob patterns and manifests (a CSV or Parquet file with a
+    path column; relative paths from the manifest's folder). --resume after an interruption
+    scores only the chunks without a part. In a Parquet long table a segment that cannot be
+    read gets its own error record.
+
+    **--stdin** reads {"id"?, "time", "flux", "flux_err"?} lines (null = missing point; the
+    id defaults to line-N) and writes one result or error line per line; a bad line gives an
+    error line and the stream goes on.
+
+    A score is triage, not a discovery: a planet or exocomet call needs follow-up.
+
     Exit codes: 0 every segment scored; 1 some segment could not be scored (the others are
-    still written) or the model could not be loaded; 2 bad arguments (e.g. --ephemeris) or no
-    light-curve file found.
+    still written), the model could not be loaded, or a batch chunk was left unfinished; 2 bad
+    arguments (e.g. --ephemeris, or --resume with other inputs) or no light-curve file found;
+    130 interrupted (batch: run again with --resume).
 
     Examples:
 
@@ -224,30 +267,85 @@ def score(
       dipshape score batch.parquet --registry models --model default-2026-12-02T0130Z
 
       dipshape score LS-0042.fits --ephemeris 3.52,1412.37,0.12
-    """
-    from tqdm import tqdm
 
-    from features.catalog import FEATURE_VERSION
-    from service.scoring import (
-        check_model,
-        default_registry_root,
-        find_inputs,
-        json_line,
-        load_ood,
-        parse_ephemeris,
-        score_path,
-    )
-    from training.registry import load_model
+      dipshape score 'lumen/*.fits' lumen_batch.parquet --workers 2 --out results/
+
+      dipshape score manifest.csv --scheduler tcp://10.0.0.5:8786 --out results/ --resume
+
+      cat lumen_alerts.jsonl | dipshape score --stdin > lumen_scores.jsonl
+    """
+    import os
+
+    from service.scoring import parse_ephemeris
+
+    batch_mode = any(v is not None for v in (scheduler, workers, chunk_size, fmt)) or resume \
+        or (out is not None and out.endswith(("/", os.sep)))
+    from service.batch import DEFAULT_CHUNK_SIZE, plan_inputs
+    from service.scoring import find_inputs
 
     try:
         known = None if ephemeris is None else parse_ephemeris(ephemeris)
-        files = find_inputs(paths)
-        root = registry if registry is not None else default_registry_root()
-        model = load_model(root, model_version, expected_feature_version=FEATURE_VERSION)
-        check_model(model)
-        ood = load_ood(root, model.card.version)
+        if stdin:
+            _check_stdin_options(paths, out, batch_mode)
+        elif batch_mode:
+            _check_batch_options(out, scheduler, workers, fmt)
+            plan = plan_inputs(paths or [], chunk_size=chunk_size or DEFAULT_CHUNK_SIZE)
+        else:
+            files = find_inputs(paths or [])
+        root, model, ood = _score_model(registry, model_version)
     except DipshapeError as err:
         raise _fail(err) from err
+    if stdin:
+        _score_stdin(model, ood, known)
+    elif batch_mode:
+        _score_batch(plan, Path(out or ""), root, model, ood, known, scheduler=scheduler,
+                     workers=workers, fmt=fmt or "parquet", resume=resume, progress=progress)
+    else:
+        _score_files(files, None if out is None else Path(out), model, ood, known, progress)
+
+
+def _score_model(registry: Path | None, version: str | None):
+    """The registry root, the verified model and its training-range table."""
+    from features.catalog import FEATURE_VERSION
+    from service.scoring import check_model, default_registry_root, load_ood
+    from training.registry import load_model
+
+    root = registry if registry is not None else default_registry_root()
+    model = load_model(root, version, expected_feature_version=FEATURE_VERSION)
+    check_model(model)
+    return root, model, load_ood(root, model.card.version)
+
+
+def _check_stdin_options(paths: list[Path] | None, out: str | None, batch_mode: bool) -> None:
+    if paths or out is not None or batch_mode:
+        raise ParameterError(
+            "invalid_parameter", "--stdin reads standard input and writes standard output: "
+            "give no PATH, --out or batch option with it")
+
+
+def _check_batch_options(out: str | None, scheduler: str | None, workers: int | None,
+                         fmt: str | None) -> None:
+    from service.batch import PART_FORMATS
+
+    if not out:
+        raise ParameterError("invalid_parameter",
+                             "batch mode writes parts into a folder: give --out DIR/")
+    if scheduler is not None and workers is not None:
+        raise ParameterError("invalid_parameter",
+                             "give --scheduler (an existing cluster) or --workers (a local "
+                             "one), not both")
+    if fmt is not None and fmt not in PART_FORMATS:
+        raise ParameterError("unsupported_format",
+                             f"--format must be one of {', '.join(PART_FORMATS)}; got {fmt!r}")
+
+
+def _score_files(files: list[Path], out: Path | None, model, ood, known,
+                 progress: bool | None) -> None:
+    """The classic mode: one JSON line per segment to a file or standard output."""
+    from tqdm import tqdm
+
+    from service.scoring import json_line, score_path
+
     n_scored = n_failed = 0
     sink = None
     if out is not None:
@@ -255,11 +353,12 @@ def score(
             out.parent.mkdir(parents=True, exist_ok=True)
             sink = out.open("w", encoding="utf-8")
         except OSError as exc:
+            hint = " (end it with / for batch mode)" if out.is_dir() else ""
             raise _fail(ParameterError(
-                "unwritable_output", f"--out {out}: {exc.strerror or exc}")) from exc
+                "unwritable_output", f"--out {out}: {exc.strerror or exc}{hint}")) from exc
     try:
         with tqdm(total=len(files), desc="scoring", unit="file", file=sys.stderr,
-                  leave=False, disable=None) as bar:
+                  leave=False, disable=None if progress is None else not progress) as bar:
             for path in files:
                 try:
                     lines = score_path(path, model, ephemeris=known, ood=ood)
@@ -284,6 +383,50 @@ def score(
     typer.echo(f"scored {n_scored} segment(s) from {len(files)} file(s) with model "
                f"{model.card.version}; {n_failed} failed{where}", err=True)
     if n_failed:
+        raise typer.Exit(EXIT_FAILURE)
+
+
+def _score_stdin(model, ood, known) -> None:
+    """--stdin: segment JSON lines in, result lines out, flushed one by one."""
+    from service.batch import score_stream
+
+    try:
+        scored, failed = score_stream(sys.stdin, sys.stdout, model, ood=ood, ephemeris=known)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    except KeyboardInterrupt:
+        typer.echo("interrupted", err=True)
+        raise typer.Exit(EXIT_INTERRUPTED) from None
+    typer.echo(f"scored {scored} line(s) with model {model.card.version}; {failed} failed",
+               err=True)
+    if failed:
+        raise typer.Exit(EXIT_FAILURE)
+
+
+def _score_batch(plan, folder: Path, root: Path, model, ood, known, *, scheduler: str | None,
+                 workers: int | None, fmt: str, resume: bool, progress: bool | None) -> None:
+    """Batch mode: chunks as tasks, one part per chunk in DIR, manifest and summary."""
+    import contextlib
+
+    from service.batch import PortableModel, cluster_client, part_paths, run_batch
+
+    try:
+        portable = PortableModel.from_registry(root, model, ood)
+        on_cluster = (scheduler is not None or workers is not None) and plan.n_chunks > 1
+        with (cluster_client(scheduler=scheduler, workers=workers) if on_cluster
+              else contextlib.nullcontext()) as client:
+            summary = run_batch(plan, portable, folder, fmt=fmt, resume=resume, client=client,
+                                ephemeris=known, progress=progress)
+    except DipshapeError as err:
+        raise _fail(err) from err
+    except KeyboardInterrupt:
+        done = sum(p.is_file() for p in part_paths(folder, plan.n_chunks, fmt))
+        typer.echo(f"interrupted: {done} of {plan.n_chunks} chunk(s) have their part in "
+                   f"{folder}; run the same command with --resume to finish", err=True)
+        raise typer.Exit(EXIT_INTERRUPTED) from None
+    typer.echo(summary.text(), err=True)
+    typer.echo(CAUTION, err=True)
+    if summary.failed or not summary.complete:
         raise typer.Exit(EXIT_FAILURE)
 
 
@@ -342,7 +485,7 @@ def train(
     import pandas as pd
 
     from training.dataset import labelled_table, simulated_table
-    from training.train import train_and_save
+    from training.train import ORIGIN_COLUMN, train_and_save
 
     if preset not in _PRESETS:
         raise _fail(ParameterError(
@@ -370,8 +513,16 @@ def train(
         if not parts:
             raise ParameterError("invalid_parameter", "nothing to train on: --simulated 0 and "
                                  "no --labels")
-        # a single part keeps its provenance (attrs) for the model card
-        table = parts[0] if len(parts) == 1 else pd.concat(parts, ignore_index=True)
+        # a single part keeps its provenance (attrs) for the model card; mixed parts are
+        # tagged so the report evaluates the group's held-out labels apart
+        if len(parts) == 1:
+            table = parts[0]
+        else:
+            sources = [dict(p.attrs.get("source", {})) for p in parts]
+            table = pd.concat([p.assign(**{ORIGIN_COLUMN: origin}) for p, origin
+                               in zip(parts, ("simulated", "group"), strict=True)],
+                              ignore_index=True)
+            table.attrs = {"source": {"kind": "mixed", "parts": sources}}
         from threadpoolctl import threadpool_limits
 
         with threadpool_limits(1):

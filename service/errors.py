@@ -22,6 +22,10 @@ Errors raised only by the service (all :class:`ServiceError`)::
     timeout              504     scoring took longer than the per-request time limit
     internal_error       500     an unexpected failure (logged; no trace reaches a client)
     open_bind_refused    -       ``dipshape serve`` beyond loopback without API keys
+
+Batch scoring (``service/batch.py``, all :class:`~features.errors.ParameterError`, exit 2):
+``output_exists``, ``resume_mismatch``, ``invalid_run_manifest``, ``invalid_manifest``,
+``invalid_chunk_size``, ``scheduler_unreachable``, ``no_workers``.
 """
 
 from __future__ import annotations
@@ -36,6 +40,7 @@ from features.errors import (
 
 __all__ = [
     "EXIT_FAILURE",
+    "EXIT_INTERRUPTED",
     "EXIT_USAGE",
     "ServiceError",
     "cli_exit_code",
@@ -48,6 +53,8 @@ EXIT_FAILURE = 1
 """Exit code when the work ran but some of it failed (e.g. a segment could not be scored)."""
 EXIT_USAGE = 2
 """Exit code for bad arguments or unusable input."""
+EXIT_INTERRUPTED = 130
+"""Exit code after Ctrl-C: 128 + SIGINT, the shells' convention (common practice)."""
 
 
 class ServiceError(DipshapeError):

@@ -826,6 +826,26 @@ def test_parquet_batch_table(tmp_path):
     assert read_segment(single).id == "only"
 
 
+def test_batch_table_segment_without_errors_gets_them_estimated(tmp_path):
+    # one shared flux_err column: empty (all NaN) for a segment means "no errors given", as
+    # for an absent column; a partly missing one still drops those points
+    rng = np.random.default_rng(12)
+    t = np.sort(rng.uniform(0.0, 3.0, 30))
+    f = 100.0 * (1 + rng.normal(0, 1e-3, 30))
+    err = np.full(30, 0.1)
+    path = _parquet(tmp_path / "mixed.parquet", {
+        "segment_id": ["with"] * 30 + ["without"] * 30,
+        "time": np.concatenate([t, t]), "flux": np.concatenate([f, f]),
+        "flux_err": np.concatenate([err, np.full(30, np.nan)])})
+    with_err, without = read_segments(path)
+    assert with_err == make_segment(t, f, err, id="with")
+    assert without == make_segment(t, f, id="without")
+    assert without.flux_err_estimated and not with_err.flux_err_estimated
+    with pytest.raises(SegmentError) as info:
+        make_segment(t, f, np.full(30, np.nan))  # the direct API stays strict
+    assert info.value.code == "non_finite_flux_err"
+
+
 def test_parquet_nullable_columns(tmp_path):
     time, flux, _ = _arrays()
     frame = pd.DataFrame({"time": time, "flux": pd.array([*flux[:-1], None], dtype="Float64")})

@@ -73,3 +73,41 @@ def test_bad_train_arguments(tmp_path):
     assert r.exit_code == 2 and "invalid_parameter" in r.output
     r = runner.invoke(app, ["train", "--labels", "x.csv", "--registry", str(tmp_path)])
     assert r.exit_code == 2 and "--segments" in r.output
+
+
+@pytest.mark.slow
+def test_retrain_on_group_labels_with_a_class_of_their_own(tmp_path):
+    """A group's folder of labelled light curves, with a class beyond the five, is learnt end
+    to end; the report evaluates the group's held-out rows apart from the simulated ones, and
+    the new version stays inactive."""
+    import pandas as pd
+
+    from training.simulate import simulate_dataset, write_dataset
+
+    folder = tmp_path / "group"
+    segments = (simulate_dataset(100, seed=41, id_prefix="LS-g")
+                + simulate_dataset(90, seed=42, classes=("variability",), id_prefix="LS-v"))
+    labels = pd.read_csv(write_dataset(segments, folder))
+    labels.loc[labels["subtype"] == "pulsation", "label"] = "pulsator"
+    # enough for every split: calibration needs >= 5 of each class (20 % of the rows)
+    assert (labels["label"] == "pulsator").sum() >= 28
+    missing = pd.DataFrame({"id": ["LS-gone"], "label": ["planet"]})
+    pd.concat([labels[["id", "label"]], missing]).to_csv(tmp_path / "labels.csv", index=False)
+    root = tmp_path / "registry"
+    with threadpool_limits(1):
+        result = runner.invoke(app, ["train", "--labels", str(tmp_path / "labels.csv"),
+                                     "--segments", str(folder), "--simulated", "250",
+                                     "--seed", "3", "--registry", str(root), "--name", "group",
+                                     "--version", "group-1"])
+    assert result.exit_code == 0, result.output
+    # the label whose segment is missing is reported
+    assert "LS-gone" in result.output and "pulsator" in result.output
+    (card,) = list_models(root)
+    assert card.classes[-1] == "pulsator" and not card.active
+    assert active_version(root) is None
+    names = [m["name"] for m in card.metrics["models"]]
+    assert "calibrated on group rows" in names and "calibrated on simulated rows" in names
+    group = next(m for m in card.metrics["models"] if m["name"] == "calibrated on group rows")
+    assert group["n_samples"] == pytest.approx(0.2 * 190, abs=3)
+    assert "pulsator" in group["f1"]
+    assert "calibrated on group rows" in (root / "group-1" / "report" / "report.html").read_text()
