@@ -37,11 +37,6 @@ import asyncio  # noqa: E402
 import contextlib  # noqa: E402
 import json  # noqa: E402
 import math  # noqa: E402
-import os  # noqa: E402
-import signal  # noqa: E402
-import socket  # noqa: E402
-import subprocess  # noqa: E402
-import tempfile  # noqa: E402
 import time  # noqa: E402
 from collections import Counter  # noqa: E402
 from collections.abc import Iterator, Mapping  # noqa: E402
@@ -50,6 +45,7 @@ from dataclasses import dataclass, field  # noqa: E402
 import httpx  # noqa: E402
 import numpy as np  # noqa: E402
 
+from service.local import serve_process  # noqa: E402
 from service.settings import is_loopback  # noqa: E402
 from training.classes import CLASSES  # noqa: E402
 from training.simulate import simulate_segment  # noqa: E402
@@ -104,12 +100,6 @@ def make_bodies(n: int, *, seed: int = 7000) -> list[Body]:
     return out
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 @contextlib.contextmanager
 def serve(workers: int, registry: Path, env: Mapping[str, str]) -> Iterator[tuple[str, int]]:
     """Run ``dipshape serve`` on a free loopback port until the block ends.
@@ -121,51 +111,16 @@ def serve(workers: int, registry: Path, env: Mapping[str, str]) -> Iterator[tupl
     registry : Path
         Model registry folder.
     env : mapping
-        Extra environment variables (``DIPSHAPE_*`` settings) for the server.
+        ``DIPSHAPE_*`` settings for the server.
 
     Yields
     ------
     (str, int)
         The base URL and the pid of the server process.
-
-    Raises
-    ------
-    SystemExit
-        When the server exits early or is not ready within :data:`READY_S`.
     """
-    port = _free_port()
-    with tempfile.TemporaryDirectory(prefix="dipshape-load-") as tmp:
-        log = Path(tmp) / "serve.log"
-        with log.open("wb") as log_file:
-            proc = subprocess.Popen(
-                [str(Path(sys.executable).parent / "dipshape"), "serve", "--host", "127.0.0.1",
-                 "--port", str(port), "--workers", str(workers), "--registry", str(registry),
-                 "--db", str(Path(tmp) / "load.sqlite")],
-                env={**os.environ, **env}, stdout=subprocess.DEVNULL, stderr=log_file, cwd=REPO)
-        base = f"http://127.0.0.1:{port}"
-        try:
-            _wait_ready(base, proc, log)
-            yield base, proc.pid
-        finally:
-            proc.send_signal(signal.SIGINT)
-            try:
-                proc.wait(timeout=STOP_S)
-            except subprocess.TimeoutExpired:
-                proc.kill()
-                proc.wait()
-
-
-def _wait_ready(base: str, proc: subprocess.Popen[bytes], log: Path) -> None:
-    deadline = time.monotonic() + READY_S
-    while time.monotonic() < deadline:
-        if proc.poll() is not None:
-            raise SystemExit(f"dipshape serve exited ({proc.returncode}):\n"
-                             + log.read_text(errors="replace")[-2000:])
-        with contextlib.suppress(httpx.TransportError):
-            if httpx.get(base + "/readyz", timeout=5.0).status_code == 200:
-                return
-        time.sleep(0.2)
-    raise SystemExit(f"dipshape serve was not ready within {READY_S:g} s")
+    with serve_process(registry, workers=workers, env=env, ready_timeout_s=READY_S,
+                       stop_timeout_s=STOP_S) as served:
+        yield served.base_url, served.pid
 
 
 def process_tree(pid: int) -> list[int]:

@@ -24,11 +24,7 @@ sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != Path(__file__)
 
 import argparse  # noqa: E402
 import math  # noqa: E402
-import os  # noqa: E402
-import signal  # noqa: E402
-import socket  # noqa: E402
-import subprocess  # noqa: E402
-import tempfile  # noqa: E402
+import threading  # noqa: E402
 import time  # noqa: E402
 from concurrent.futures import ThreadPoolExecutor  # noqa: E402
 
@@ -37,18 +33,13 @@ import numpy as np  # noqa: E402
 
 from features.catalog import FEATURE_VERSION  # noqa: E402
 from features.segment import make_segment  # noqa: E402
+from service.local import serve_process  # noqa: E402
 from service.scoring import load_ood, score_segment  # noqa: E402
 from training.registry import load_model  # noqa: E402
 from training.simulate import simulate_segment  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 CLASSES = ("planet", "eclipsing_binary", "exocomet", "variability", "systematic")
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
 
 
 def _segments(n: int) -> list[dict]:
@@ -96,27 +87,10 @@ def _hwm_mb(pid: int) -> float:
 
 def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, registry: Path,
          ref_ms: float) -> None:
-    port = _free_port()
-    db = Path(tempfile.mkdtemp()) / "bench.sqlite"
-    env = dict(os.environ, DIPSHAPE_MAX_QUEUE="1000")
-    proc = subprocess.Popen(
-        [str(Path(sys.executable).parent / "dipshape"), "serve", "--port", str(port), "--workers",
-         str(workers), "--registry", str(registry), "--db", str(db)],
-        env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=REPO)
-    base = f"http://127.0.0.1:{port}"
-    try:
+    with serve_process(registry, workers=workers, env={"DIPSHAPE_MAX_QUEUE": "1000"}) as served:
+        base = served.base_url
         with httpx.Client(base_url=base, timeout=60.0) as c:
-            deadline = time.monotonic() + 60
-            while time.monotonic() < deadline:
-                try:
-                    if c.get("/readyz").status_code == 200:
-                        break
-                except httpx.TransportError:
-                    pass
-                time.sleep(0.2)
-            else:
-                raise SystemExit("the service did not become ready in 60 s")
-            for body in segments[:4]:  # warm-up
+            for body in segments[:20]:  # warm-up (first requests allocate and load lazily)
                 c.post("/v1/score", json=body).raise_for_status()
             # one client: the service's overhead over in-process scoring
             single, ratios = [], []
@@ -130,11 +104,14 @@ def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, regi
                 ratios.append(lat * 1e3 / r.json()["elapsed_ms"])
         single_ms = float(np.median(single) * 1e3)
 
+        local = threading.local()  # one connection per client thread, reused
+
         def one(i: int) -> tuple[float, int]:
-            with httpx.Client(base_url=base, timeout=60.0) as cc:
-                t0 = time.perf_counter()
-                r = cc.post("/v1/score", json=segments[i % len(segments)])
-                return time.perf_counter() - t0, r.status_code
+            if not hasattr(local, "client"):
+                local.client = httpx.Client(base_url=base, timeout=60.0)
+            t0 = time.perf_counter()
+            r = local.client.post("/v1/score", json=segments[i % len(segments)])
+            return time.perf_counter() - t0, r.status_code
 
         start = time.perf_counter()
         latencies, errors = [], 0
@@ -150,7 +127,7 @@ def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, regi
                 errors += status != 200
         wall = time.perf_counter() - start
         lat = np.array(latencies) * 1e3
-        rss = [_hwm_mb(p) for p in _children(proc.pid)] or [_hwm_mb(proc.pid)]
+        rss = [_hwm_mb(p) for p in _children(served.pid)] or [_hwm_mb(served.pid)]
         print(f"{workers} worker(s), {workers} client(s): {len(lat) / wall:6.1f} req/s, "
               f"p50 {np.percentile(lat, 50):6.1f} ms, p99 {np.percentile(lat, 99):6.1f} ms, "
               f"{errors} errors in {len(lat)} requests")
@@ -159,12 +136,6 @@ def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, regi
               f"time: median {np.median(ratios):.2f}x (goal <= 1.5x)")
         print("  peak RSS per process [MB]: " + ", ".join(f"{r:.0f}" for r in rss)
               + " (goal <= 300)")
-    finally:
-        proc.send_signal(signal.SIGINT)
-        try:
-            proc.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            proc.kill()
 
 
 def main() -> None:

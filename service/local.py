@@ -1,16 +1,23 @@
-"""Run the REST service inside this process for a while (the demo, tests, notebooks).
+"""Run the REST service for a while on loopback (the demo, tests, benchmarks, notebooks).
 
-:func:`running_service` starts uvicorn on a free loopback port in a background thread, waits
-until the model is loaded, yields the base URL and stops the server on exit.
+:func:`running_service` starts uvicorn on a free loopback port in a background thread of this
+process; :func:`serve_process` runs ``dipshape serve`` as a child process (with its own worker
+processes). Both wait until the model is loaded, yield the base URL and stop the server on exit.
 """
 
 from __future__ import annotations
 
 import contextlib
+import os
+import signal
 import socket
+import subprocess
+import sys
+import tempfile
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping, Sequence
+from pathlib import Path
 
 import httpx
 import uvicorn
@@ -19,7 +26,7 @@ from service.app import create_app
 from service.errors import ServiceError
 from service.settings import ServiceSettings
 
-__all__ = ["free_loopback_port", "running_service"]
+__all__ = ["ServedProcess", "free_loopback_port", "running_service", "serve_process"]
 
 
 def free_loopback_port() -> int:
@@ -80,3 +87,91 @@ def running_service(settings: ServiceSettings, *, ready_timeout_s: float = 60.0
     finally:
         server.should_exit = True
         thread.join(timeout=30)
+
+
+class ServedProcess:
+    """A running ``dipshape serve`` child: its base URL and process."""
+
+    def __init__(self, base_url: str, process: subprocess.Popen[bytes]) -> None:
+        self.base_url = base_url
+        self.process = process
+
+    @property
+    def pid(self) -> int:
+        """The pid of the ``dipshape serve`` process (its uvicorn workers are children)."""
+        return self.process.pid
+
+
+@contextlib.contextmanager
+def serve_process(
+    registry: Path,
+    *,
+    workers: int = 1,
+    env: Mapping[str, str] | None = None,
+    extra_args: Sequence[str] = (),
+    ready_timeout_s: float = 60.0,
+    stop_timeout_s: float = 20.0,
+) -> Iterator[ServedProcess]:
+    """Run ``dipshape serve`` as a child process on a free loopback port while the block runs.
+
+    Parameters
+    ----------
+    registry : Path
+        Model registry folder.
+    workers : int
+        uvicorn worker processes.
+    env : Mapping, optional
+        ``DIPSHAPE_*`` settings for the server; the caller's own ``DIPSHAPE_*`` variables are
+        not passed on, so only these apply.
+    extra_args : sequence of str
+        More ``dipshape serve`` options.
+    ready_timeout_s, stop_timeout_s : float
+        How long to wait for ``/readyz``, and for the server to stop after SIGINT before it is
+        killed [s].
+
+    Yields
+    ------
+    ServedProcess
+
+    Raises
+    ------
+    ServiceError
+        ``model_not_ready`` when the server exits early or is not ready in time (its log is in
+        the detail).
+    """
+    clean = {k: v for k, v in os.environ.items() if not k.startswith("DIPSHAPE_")}
+    port = free_loopback_port()
+    base = f"http://127.0.0.1:{port}"
+    with tempfile.TemporaryDirectory(prefix="dipshape-serve-") as tmp:
+        log_path = Path(tmp) / "serve.log"
+        with log_path.open("wb") as log:
+            process = subprocess.Popen(
+                [str(Path(sys.executable).parent / "dipshape"), "serve", "--host", "127.0.0.1",
+                 "--port", str(port), "--workers", str(workers), "--registry", str(registry),
+                 "--db", str(Path(tmp) / "store.sqlite"), *extra_args],
+                env={**clean, **(env or {})}, stdout=subprocess.DEVNULL, stderr=log)
+        try:
+            _wait_ready(base, process, log_path, ready_timeout_s)
+            yield ServedProcess(base, process)
+        finally:
+            process.send_signal(signal.SIGINT)
+            try:
+                process.wait(timeout=stop_timeout_s)
+            except subprocess.TimeoutExpired:
+                process.kill()
+                process.wait()
+
+
+def _wait_ready(base: str, process: subprocess.Popen[bytes], log: Path, timeout_s: float
+                ) -> None:
+    deadline = time.monotonic() + timeout_s
+    while time.monotonic() < deadline:
+        if process.poll() is not None:
+            raise ServiceError("model_not_ready", f"dipshape serve exited ({process.returncode})"
+                               f": {log.read_text(errors='replace')[-2000:]}")
+        with contextlib.suppress(httpx.TransportError):
+            if httpx.get(base + "/readyz", timeout=5.0).status_code == 200:
+                return
+        time.sleep(0.2)
+    raise ServiceError("model_not_ready", f"dipshape serve at {base} was not ready within "
+                       f"{timeout_s:g} s")

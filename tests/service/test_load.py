@@ -20,14 +20,9 @@ import asyncio
 import contextlib
 import json
 import math
-import os
 import re
 import shutil
-import signal
-import socket
-import subprocess
 import sys
-import time
 from collections.abc import Iterator, Mapping
 from pathlib import Path
 
@@ -36,6 +31,7 @@ import jsonschema
 import numpy as np
 import pytest
 
+from service.local import serve_process
 from service.scoring import result_schema
 from training.classes import CLASSES
 from training.simulate import simulate_segment
@@ -57,44 +53,14 @@ CLIENTS, PER_CLIENT = 4, 10
 # --------------------------------------------------------------------------------------------
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 @contextlib.contextmanager
 def _serve(tmp: Path, settings: Mapping[str, str]) -> Iterator[str]:
     """One-worker ``dipshape serve`` on a free loopback port with these DIPSHAPE_* settings."""
     registry = tmp / "models"
     shutil.copytree(REPO / "models" / "default-v2", registry / "default-v2")
     (registry / "ACTIVE").write_text("default-v2\n")
-    env = {k: v for k, v in os.environ.items() if not k.startswith("DIPSHAPE_")}
-    env.update(settings)
-    port = _free_port()
-    proc = subprocess.Popen([DIPSHAPE, "serve", "--port", str(port), "--workers", "1",
-                             "--registry", str(registry), "--db", str(tmp / "store.sqlite")],
-                            env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        deadline = time.monotonic() + 60
-        while True:
-            with contextlib.suppress(httpx.TransportError):
-                if httpx.get(base + "/readyz").status_code == 200:
-                    break
-            if proc.poll() is not None:
-                pytest.fail(f"dipshape serve exited: {proc.stderr.read().decode()}")
-            if time.monotonic() > deadline:
-                pytest.fail("dipshape serve did not become ready within 60 s")
-            time.sleep(0.2)
-        yield base
-    finally:
-        proc.send_signal(signal.SIGINT)
-        try:
-            proc.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+    with serve_process(registry, env=settings) as served:
+        yield served.base_url
 
 
 @pytest.fixture(scope="module")

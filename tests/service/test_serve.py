@@ -2,13 +2,9 @@
 
 from __future__ import annotations
 
-import os
 import shutil
-import signal
-import socket
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import httpx
@@ -16,49 +12,20 @@ import numpy as np
 import pytest
 
 from service.client import DipshapeClient
+from service.local import serve_process
 from training.simulate import simulate_segment
 
 REPO = Path(__file__).resolve().parents[2]
 DIPSHAPE = str(Path(sys.executable).parent / "dipshape")
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 @pytest.fixture(scope="module")
 def server(tmp_path_factory):
-    tmp = tmp_path_factory.mktemp("serve")
-    registry = tmp / "models"
+    registry = tmp_path_factory.mktemp("serve") / "models"
     shutil.copytree(REPO / "models" / "default-v2", registry / "default-v2")
     (registry / "ACTIVE").write_text("default-v2\n")
-    port = _free_port()
-    env = dict(os.environ, DIPSHAPE_MAX_BODY_BYTES=str(1024 * 1024))
-    proc = subprocess.Popen([DIPSHAPE, "serve", "--port", str(port), "--registry",
-                             str(registry), "--db", str(tmp / "store.sqlite")],
-                            env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
-    base = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + 60
-    while time.monotonic() < deadline:
-        try:
-            if httpx.get(base + "/readyz").status_code == 200:
-                break
-        except httpx.TransportError:
-            pass
-        if proc.poll() is not None:
-            pytest.fail(f"dipshape serve exited: {proc.stdout.read().decode()}")
-        time.sleep(0.2)
-    else:
-        proc.kill()
-        pytest.fail("dipshape serve did not become ready within 60 s")
-    yield base
-    proc.send_signal(signal.SIGINT)
-    try:
-        proc.wait(timeout=20)
-    except subprocess.TimeoutExpired:
-        proc.kill()
+    with serve_process(registry, env={"DIPSHAPE_MAX_BODY_BYTES": str(1024 * 1024)}) as served:
+        yield served.base_url
 
 
 def test_scores_over_real_http(server):
@@ -94,3 +61,12 @@ def test_refuses_to_listen_beyond_loopback_without_keys(tmp_path):
                           timeout=60)
     assert proc.returncode == 2
     assert "open_bind_refused" in proc.stderr
+
+
+def test_a_server_without_a_model_is_reported_not_ready(tmp_path):
+    from service.errors import ServiceError
+
+    with pytest.raises(ServiceError) as info, serve_process(tmp_path / "empty",
+                                                            ready_timeout_s=5.0):
+        pass
+    assert info.value.code == "model_not_ready"
