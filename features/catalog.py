@@ -20,7 +20,7 @@ __all__ = [
     "flags_markdown",
 ]
 
-FEATURE_VERSION = "1"
+FEATURE_VERSION = "2"
 """Changes whenever a feature definition changes; a model trained on another version is refused."""
 
 SNR_SCAN_DURATIONS_DAYS: tuple[float, ...] = tuple(

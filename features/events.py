@@ -20,6 +20,7 @@ periods at once by ``_evaluate_trials`` and one by one by ``_slow_evaluate_candi
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import math
 from collections.abc import Sequence
@@ -97,6 +98,8 @@ _DEPTH_RATIO = 1.5
 _DURATION_RATIO = 2.0
 #: Candidates whose stacked SNR is within this fraction of the best count as tied.
 _TIE_FRACTION = 0.01
+_MAX_REFERENCES = 3  # duration families that anchor trial periods (estimate_period)
+_EMPTY_FRACTION = 0.05  # rule 3 forgives this share of shallow epochs (gap edges, ramps)
 #: BLS is run on points within this multiple of the farthest trial-transit reach.
 _BLS_REACH_FACTOR = 1.1
 #: BLS refinement grid: this many periods over +-_BLS_HALF_WIDTHS peak half-widths.
@@ -791,7 +794,15 @@ def _slow_evaluate_candidate(
     mean_depth = float(np.sum(wm * md) / np.sum(wm))
     # rule 3: every other covered epoch shows a dip consistent with the members
     others = covered & ~at_member
-    if np.any(depth[others] < mean_depth - _DEPTH_SIGMA * sigma[others]):
+    n_others = int(others.sum())
+    parity = np.mod(epochs[at_member & covered], 2)
+    dof = sum(int(np.sum(parity == p)) - 1 for p in (0, 1) if np.sum(parity == p) >= 2)
+    ss = sum(float(np.sum((md[parity == p] - md[parity == p].mean()) ** 2))
+             for p in (0, 1) if np.sum(parity == p) >= 2)
+    scatter = math.sqrt(ss / dof) if dof >= 2 else 0.0
+    n_fail = int(np.sum(depth[others] < mean_depth
+                        - _DEPTH_SIGMA * np.hypot(sigma[others], scatter)))
+    if n_fail > math.floor(_EMPTY_FRACTION * n_others):
         return None
     w = 1.0 / sigma[covered] ** 2
     score = float(np.sum(w * depth[covered]) / math.sqrt(np.sum(w)))
@@ -890,8 +901,12 @@ def _evaluate_trials(
         )
     # rule 3: every other covered epoch dips consistently with the members
     others = covered & ~is_mem
-    fails = others & (depth < mean_depth[owner] - _DEPTH_SIGMA * sigma)
-    ok &= np.bincount(owner, weights=fails, minlength=sel.size) == 0
+    n_others = np.bincount(owner, weights=others, minlength=sel.size)
+    scatter = _parity_scatter(owner, mc, depth, epoch, sel.size)
+    fails = others & (depth < mean_depth[owner]
+                      - _DEPTH_SIGMA * np.hypot(sigma, scatter[owner]))
+    allowed = np.floor(_EMPTY_FRACTION * n_others)  # 0 below 20 other epochs
+    ok &= np.bincount(owner, weights=fails, minlength=sel.size) <= allowed
     wc = np.where(covered, 1.0 / sigma**2, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
         score = np.bincount(owner, weights=wc * depth, minlength=sel.size) / np.sqrt(
@@ -902,6 +917,27 @@ def _evaluate_trials(
                    tuple(int(j) for j in np.flatnonzero(mem[i])))
         for i in np.flatnonzero(ok)
     ]
+
+
+def _parity_scatter(owner: NDArray[np.int64], use: NDArray[np.bool_],
+                    depth: NDArray[np.float64], epoch: NDArray[np.float64],
+                    n_groups: int) -> NDArray[np.float64]:
+    """Per group, the pooled sample std of ``depth[use]`` within even and within odd epochs.
+
+    Pooled within parity, an eclipsing binary folded at half its period (primaries on even
+    epochs, secondaries on odd ones) shows no scatter, while real epoch-to-epoch variation
+    does. Zero with fewer than two degrees of freedom."""
+    key = owner * 2 + np.mod(epoch, 2).astype(np.int64)
+    cnt = np.bincount(key, weights=use, minlength=2 * n_groups)
+    s1 = np.bincount(key, weights=np.where(use, depth, 0.0), minlength=2 * n_groups)
+    s2 = np.bincount(key, weights=np.where(use, depth**2, 0.0), minlength=2 * n_groups)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ss = np.where(cnt >= 2, np.clip(s2 - s1**2 / cnt, 0.0, None), 0.0)
+    dof = np.where(cnt >= 2, cnt - 1, 0.0)
+    ss_g = ss.reshape(n_groups, 2).sum(axis=1)
+    dof_g = dof.reshape(n_groups, 2).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(dof_g >= 2, np.sqrt(ss_g / dof_g), 0.0)
 
 
 def _group_arg(
@@ -961,7 +997,16 @@ def estimate_period(
     2. the members agree: durations within a factor 2, box depths (all measured with the median
        member duration) within 3 sigma of each other or within a factor 1.5;
     3. every other predicted epoch covered by data shows a box depth no lower than the mean
-       member depth minus 3 sigma (a true period has no empty epochs; a sub-multiple does).
+       member depth minus 3 sigma (a true period has no empty epochs; a sub-multiple does),
+       sigma being the epoch's noise and the members' own depth scatter in quadrature (real
+       epoch-to-epoch variation, e.g. quarter-to-quarter dilution), pooled within even and
+       within odd epochs so that alternating primary and secondary eclipses do not count;
+       with many epochs, 5 % of them may fall short (one in 20: epochs at gap edges and on
+       instrumental ramps are detrended badly), while a sub-multiple leaves half of them empty.
+
+    Trial periods are anchored on the strongest event and on the strongest event of each
+    other duration family (durations more than a factor 2 apart, at most three families), so
+    that a long ramp near a gap cannot hide a periodic family of short eclipses.
 
     Among accepted trials, the highest stacked box SNR wins; within 1 % the longest period is
     kept. The winner is refined with astropy ``BoxLeastSquares`` (Kovacs, Zucker & Mazeh 2002)
@@ -993,24 +1038,34 @@ def estimate_period(
             raise ParameterError("invalid_parameter", "events must be Event instances")
     if len(events) < 2:
         return None
-    longest = max(e.duration_days for e in events)
-    p_min = 2.0 * longest if min_period_days is None else _positive(
-        "min_period_days", min_period_days
-    )
-    ref = max(range(len(events)), key=lambda i: events[i].snr)
-    t_ref = events[ref].t_mid
-    trials = []
-    for j, e in enumerate(events):
-        if j == ref:
-            continue
-        delta = abs(e.t_mid - t_ref)
-        for k in range(1, _MAX_HARMONIC + 1):
-            if delta / k < p_min:
-                break
-            trials.append(delta / k)
-    if not trials:
-        return None
-    accepted = _evaluate_trials(boxes, events, np.unique(np.array(trials)), t_ref)
+    fixed_min = None if min_period_days is None else _positive("min_period_days",
+                                                                 min_period_days)
+    accepted = []
+    for ref in _reference_events(events):
+        # members must share the reference's duration within a factor 2 (rule 2), so the
+        # shortest period worth trying is twice the longest duration of that family
+        # (a long event near a gap would otherwise be a "member" of any short period); only
+        # that family can be members
+        d_ref = events[ref].duration_days
+        family = [j for j, e in enumerate(events)
+                  if 0.5 * d_ref <= e.duration_days <= 2.0 * d_ref]
+        p_min = 2.0 * max(events[j].duration_days for j in family) if fixed_min is None \
+            else fixed_min
+        t_ref = events[ref].t_mid
+        trials = []
+        for j in family:
+            if j == ref:
+                continue
+            delta = abs(events[j].t_mid - t_ref)
+            for k in range(1, _MAX_HARMONIC + 1):
+                if delta / k < p_min:
+                    break
+                trials.append(delta / k)
+        if trials:
+            found = _evaluate_trials(boxes, [events[j] for j in family],
+                                     np.unique(np.array(trials)), t_ref)
+            accepted += [dataclasses.replace(c, members=tuple(family[m] for m in c.members))
+                         for c in found]
     if not accepted:
         logger.info("no trial period passes the consistency rules: not periodic")
         return None
@@ -1018,6 +1073,23 @@ def estimate_period(
     tied = [c for c in accepted if c.score >= (1.0 - _TIE_FRACTION) * top]
     best = max(tied, key=lambda c: c.period)
     return _refine_with_bls(t, f, flux_err, boxes, events, best)
+
+
+def _reference_events(events: Sequence[Event]) -> list[int]:
+    """Indices of the events that anchor trial periods: the strongest, then the strongest of
+    each other duration family (durations more than a factor 2 apart), at most
+    :data:`_MAX_REFERENCES`. A ramp or a long dip near a gap can outshine a periodic family of
+    short eclipses; anchoring only on the strongest event would then never fold them."""
+    order = sorted(range(len(events)), key=lambda i: events[i].snr, reverse=True)
+    refs: list[int] = []
+    for i in order:
+        d = events[i].duration_days
+        if all(not (0.5 * events[r].duration_days <= d <= 2.0 * events[r].duration_days)
+               for r in refs):
+            refs.append(i)
+        if len(refs) == _MAX_REFERENCES:
+            break
+    return refs
 
 
 def _refine_with_bls(

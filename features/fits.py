@@ -501,7 +501,10 @@ def _fit_templates(win: Window) -> tuple[dict[str, FamilyFit], dict[str, float]]
         x = (t[None, :] - g0.reshape(-1, 1)) / g1.reshape(-1, 1)
         if mirrored:
             x = -x
-        best = (np.inf, 0.0, 0.0, 0.0, 0.0)
+        # start from the middle of the grid, so that a window where no row is finite (e.g.
+        # every bin weight zero) still gives usable parameters
+        best = (np.inf, float(win.t_mid), float(crosses[1]),
+                float(_COMET_R[len(_COMET_R) // 2]), 0.0)
         for r in _COMET_R[1::3]:
             u = np.interp(x, _COMET_X, _comet_row(float(r)), left=0.0, right=0.0)
             k, chi, a = _best_dip(u, y, w)

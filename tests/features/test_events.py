@@ -287,6 +287,32 @@ def test_subharmonic_with_empty_epochs_is_rejected():
     assert eph.period_days == pytest.approx(8.0, rel=0.01)
 
 
+def test_long_ramp_does_not_hide_a_periodic_family_of_short_eclipses():
+    # A thermal ramp after a data gap is the strongest "dip" and has another duration; the
+    # period must still come from the short eclipses, and box least squares on the same
+    # points agrees (astropy). The real case is a Kepler binary (tests/features/
+    # test_real_pipeline.py, KIC 10727668).
+    rng = np.random.default_rng(33)
+    t = np.arange(0.0, 80.0, THIRTY_MIN)
+    t = t[(t < 39.0) | (t > 42.0)]  # a 3-day gap
+    period, depth = 2.3059, 0.022
+    f = np.ones(t.size)
+    for n in range(-1, 36):
+        f *= _box(t, t0=0.7 + period * n, duration=0.11, depth=depth)
+    ramp = (t > 42.0) & (t < 43.8)
+    f[ramp] -= 0.03 * np.exp(-(t[ramp] - 42.0) / 0.6)  # the strongest event
+    f = f + rng.normal(0.0, 1e-3, t.size)
+    events = search_dips(t, f, None, max_events=10)
+    strongest = max(events, key=lambda e: e.snr)
+    # the ramp outshines the eclipses and is of another duration family (> 2x longer)
+    assert 42.0 < strongest.t_mid < 43.8 and strongest.duration_days > 2 * 0.11
+    eph = estimate_period(t, f, None, events)
+    assert eph is not None
+    assert eph.period_days == pytest.approx(period, rel=2e-3)
+    res = BoxLeastSquares(t, f).power(np.linspace(2.2, 2.4, 2001), [0.08, 0.11, 0.14])
+    assert eph.period_days == pytest.approx(float(res.period[np.argmax(res.power)]), rel=1e-3)
+
+
 def test_eclipsing_binary_with_unequal_eclipses_folds_at_its_period():
     rng = np.random.default_rng(31)
     t = np.arange(0.0, 27.0, THIRTY_MIN)

@@ -26,6 +26,9 @@ PERIODS = {
     "tess_CM-Dra_s24.fits": 1.268390,
     "tess_IT-Cas_s17.fits": 3.8966,
     "kepler_KIC1026032_Q17.csv": 8.46042,
+    # four unstitched quarters whose post-gap ramps are the strongest dips (MANIFEST: fitted
+    # by the source repository, P = 2.305913 d)
+    "kepler_KIC10727668_Q14-Q17.csv": 2.305913,
 }
 
 _COLUMNS = {"tess_beta-Pic_s04-s07_pulsations-removed.csv": {"flux_col": "flux_resid_norm"}}

@@ -10,7 +10,6 @@ from __future__ import annotations
 import io
 import json
 import math
-import shutil
 import struct
 import threading
 import zipfile
@@ -32,7 +31,10 @@ from service.settings import ServiceSettings
 from training.registry import load_model
 from training.simulate import simulate_segment
 
-REPO_MODELS = Path(__file__).resolve().parents[2] / "models"
+from ._registry import copy_version, shipped_version
+
+ACTIVE = shipped_version()
+OTHER = ACTIVE + "-copy"
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948) §5.2
 
 SCORE_KEY, LABEL_KEY, ADMIN_KEY = "k-score-0123456789", "k-label-0123456789", "k-admin-0123456789"
@@ -53,11 +55,10 @@ def _segment_body(label: str, seed: int, id: str | None = None) -> dict:
 
 @pytest.fixture(scope="module")
 def registry(tmp_path_factory) -> Path:
-    """A registry with both shipped versions, default-v2 active."""
+    """A registry with two versions (copies of the shipped model), the shipped one active."""
     root = tmp_path_factory.mktemp("registry")
-    for version in ("default-v1", "default-v2"):
-        shutil.copytree(REPO_MODELS / version, root / version)
-    (root / "ACTIVE").write_text("default-v2\n")
+    copy_version(root, as_version=OTHER, active=False)
+    copy_version(root)
     return root
 
 
@@ -88,7 +89,7 @@ def _assert_error(response, status: int, code: str) -> dict:
 
 def test_health_and_readiness(client):
     assert client.get("/healthz").json() == {"status": "ok"}
-    assert client.get("/readyz").json() == {"status": "ready", "model": "default-v2"}
+    assert client.get("/readyz").json() == {"status": "ready", "model": ACTIVE}
 
 
 def test_not_ready_without_a_model(tmp_path):
@@ -115,10 +116,10 @@ def test_score_is_the_result_json_of_the_cli(client, planet, registry):
                        np.array([np.nan if f is None else f for f in planet["flux"]]),
                        np.array([np.nan if f is None else f for f in planet["flux_err"]]),
                        id=planet["id"])
-    want = score_segment(seg, model, ood=load_ood(registry, "default-v2")).to_dict()
+    want = score_segment(seg, model, ood=load_ood(registry, ACTIVE)).to_dict()
     got.pop("elapsed_ms"), want.pop("elapsed_ms")
     assert got == want
-    assert got["id"] == planet["id"] and got["model"]["version"] == "default-v2"
+    assert got["id"] == planet["id"] and got["model"]["version"] == ACTIVE
     assert math.isclose(sum(got["probabilities"].values()), 1.0, rel_tol=1e-9)
 
 
@@ -293,7 +294,7 @@ def test_keys_and_roles(keyed, planet):
                   "forbidden")
     assert keyed.post("/v1/labels", json=label,
                       headers={"X-API-Key": LABEL_KEY}).status_code == 201
-    _assert_error(keyed.post("/v1/models/default-v2/activate",
+    _assert_error(keyed.post(f"/v1/models/{ACTIVE}/activate",
                              headers={"X-API-Key": LABEL_KEY}), 403, "forbidden")
     # admin holds every role
     assert keyed.post("/v1/score", json=planet,
@@ -340,10 +341,10 @@ def test_labels_round_trip_to_training(client, tmp_path):
 
 def test_models_routes(client):
     listing = client.get("/v1/models").json()
-    assert listing["active"] == "default-v2"
-    assert {m["version"] for m in listing["models"]} == {"default-v1", "default-v2"}
+    assert listing["active"] == ACTIVE
+    assert {m["version"] for m in listing["models"]} == {OTHER, ACTIVE}
     active = client.get("/v1/models/active").json()
-    assert active["version"] == "default-v2" and active["feature_version"] == FEATURE_VERSION
+    assert active["version"] == ACTIVE and active["feature_version"] == FEATURE_VERSION
     assert len(active["sha256"]) == 64
     _assert_error(client.post("/v1/models/no-such/activate"), 404, "model_not_found")
 
@@ -357,28 +358,28 @@ def test_activation_swaps_atomically_during_scoring(registry, tmp_path):
         worker = threading.Thread(target=lambda: out.update(
             batch=c.post("/v1/score/batch", json=items).json()))
         worker.start()
-        assert c.post("/v1/models/default-v1/activate").json() == {"active": "default-v1"}
+        assert c.post(f"/v1/models/{OTHER}/activate").json() == {"active": OTHER}
         worker.join()
         versions = {r["model"]["version"] for r in out["batch"]}
         assert len(versions) == 1, "one request is scored by one model from start to end"
         after = c.post("/v1/score", json=items[0]).json()
-        assert after["model"]["version"] == "default-v1"
-        assert c.get("/readyz").json()["model"] == "default-v1"
-        assert c.post("/v1/models/default-v2/activate").status_code == 200
-    assert (registry / "ACTIVE").read_text().strip() == "default-v2"
+        assert after["model"]["version"] == OTHER
+        assert c.get("/readyz").json()["model"] == OTHER
+        assert c.post(f"/v1/models/{ACTIVE}/activate").status_code == 200
+    assert (registry / "ACTIVE").read_text().strip() == ACTIVE
 
 
 def test_holder_follows_an_activation_made_elsewhere(registry):
     holder = ModelHolder(registry, check_s=0.0)
     before = holder.load()
-    assert before.version == "default-v2"
-    (registry / "ACTIVE.tmp").write_text("default-v1\n")
+    assert before.version == ACTIVE
+    (registry / "ACTIVE.tmp").write_text(OTHER + "\n")
     (registry / "ACTIVE.tmp").replace(registry / "ACTIVE")
     try:
-        assert holder.get().version == "default-v1"
-        assert before.model.card.version == "default-v2"  # the old snapshot still works
+        assert holder.get().version == OTHER
+        assert before.model.card.version == ACTIVE  # the old snapshot still works
     finally:
-        (registry / "ACTIVE").write_text("default-v2\n")
+        (registry / "ACTIVE").write_text(ACTIVE + "\n")
 
 
 # -- limits ---------------------------------------------------------------------------------
@@ -439,7 +440,7 @@ def test_metrics_text(client, planet):
     # Prometheus text exposition format: counters get a _total suffix
     assert 'dipshape_requests_total{method="POST",route="/v1/score",status="200"}' in text
     assert "dipshape_request_seconds_bucket" in text
-    assert 'dipshape_active_model{name="default",version="default-v2"} 1.0' in text
+    assert f'dipshape_active_model{{name="default",version="{ACTIVE}"}} 1.0' in text
     assert "dipshape_scores_total{label=" in text
 
 

@@ -8,7 +8,6 @@ status.
 
 from __future__ import annotations
 
-import shutil
 from pathlib import Path
 
 import pytest
@@ -18,6 +17,8 @@ from hypothesis import strategies as st
 
 from service.app import create_app
 from service.settings import ServiceSettings
+
+from ._registry import copy_version
 
 REPO_MODELS = Path(__file__).resolve().parents[2] / "models"
 
@@ -43,8 +44,7 @@ def _inline(node, components):
 @pytest.fixture(scope="module")
 def app_and_spec(tmp_path_factory):
     root = tmp_path_factory.mktemp("registry")
-    shutil.copytree(REPO_MODELS / "default-v2", root / "default-v2")
-    (root / "ACTIVE").write_text("default-v2\n")
+    copy_version(root)
     settings_ = ServiceSettings(registry=root, db=root / "s.sqlite", max_points=5000,
                                 max_batch=4)
     with TestClient(create_app(settings_), raise_server_exceptions=False) as client:

@@ -21,7 +21,6 @@ import contextlib
 import json
 import math
 import re
-import shutil
 import sys
 from collections.abc import Iterator, Mapping
 from pathlib import Path
@@ -35,6 +34,8 @@ from service.local import serve_process
 from service.scoring import result_schema
 from training.classes import CLASSES
 from training.simulate import simulate_segment
+
+from ._registry import copy_version
 
 REPO = Path(__file__).resolve().parents[2]
 DIPSHAPE = str(Path(sys.executable).parent / "dipshape")
@@ -57,8 +58,8 @@ CLIENTS, PER_CLIENT = 4, 10
 def _serve(tmp: Path, settings: Mapping[str, str]) -> Iterator[str]:
     """One-worker ``dipshape serve`` on a free loopback port with these DIPSHAPE_* settings."""
     registry = tmp / "models"
-    shutil.copytree(REPO / "models" / "default-v2", registry / "default-v2")
-    (registry / "ACTIVE").write_text("default-v2\n")
+    registry.mkdir()
+    copy_version(registry)
     with serve_process(registry, env=settings) as served:
         yield served.base_url
 

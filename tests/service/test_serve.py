@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -15,6 +14,8 @@ from service.client import DipshapeClient
 from service.local import serve_process
 from training.simulate import simulate_segment
 
+from ._registry import copy_version, shipped_version
+
 REPO = Path(__file__).resolve().parents[2]
 DIPSHAPE = str(Path(sys.executable).parent / "dipshape")
 
@@ -22,8 +23,8 @@ DIPSHAPE = str(Path(sys.executable).parent / "dipshape")
 @pytest.fixture(scope="module")
 def server(tmp_path_factory):
     registry = tmp_path_factory.mktemp("serve") / "models"
-    shutil.copytree(REPO / "models" / "default-v2", registry / "default-v2")
-    (registry / "ACTIVE").write_text("default-v2\n")
+    registry.mkdir()
+    copy_version(registry)
     with serve_process(registry, env={"DIPSHAPE_MAX_BODY_BYTES": str(1024 * 1024)}) as served:
         yield served.base_url
 
@@ -37,7 +38,7 @@ def test_scores_over_real_http(server):
         assert result["id"] == "LS-0003-s1"
         assert set(result["probabilities"]) >= {"planet", "eclipsing_binary", "exocomet",
                                                 "variability", "systematic"}
-        assert client.active_model()["version"] == "default-v2"
+        assert client.active_model()["version"] == shipped_version()
 
 
 def test_chunked_body_over_the_limit_is_413(server):
