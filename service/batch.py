@@ -858,7 +858,7 @@ def run_batch(
     --------
     >>> plan = plan_inputs(["lumen_sector3/"])  # doctest: +SKIP
     >>> run_batch(plan, portable, "results/").text()  # doctest: +SKIP
-    'scored 412 segment(s) from 412 file(s) with model default-v2 in 7 chunk(s), ...'
+    'scored 412 segment(s) from 412 file(s) with model default-v3 in 7 chunk(s), ...'
     """
     start = time.perf_counter()
     if fmt not in PART_FORMATS:
