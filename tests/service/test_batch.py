@@ -552,9 +552,17 @@ def test_client_killed_mid_run_then_resume(registry, forty, tmp_path):
     assert _summary(out)["chunks_resumed"] == done
 
 
-def test_client_of_a_local_cluster_interrupted_with_ctrl_c(registry, forty, tmp_path):
+@pytest.fixture(scope="module")
+def two_hundred(tmp_path_factory) -> Path:
+    """Long enough (100 chunks) that a Ctrl-C after two parts lands mid-run on 2 workers."""
+    folder = tmp_path_factory.mktemp("two_hundred")
+    _write_csvs(folder, _sims(200, 37, "LS-3"))
+    return folder
+
+
+def test_client_of_a_local_cluster_interrupted_with_ctrl_c(registry, two_hundred, tmp_path):
     out = tmp_path / "out"
-    args = [str(forty), "--registry", str(registry), "--out", f"{out}/", "--chunk-size", "2",
+    args = [str(two_hundred), "--registry", str(registry), "--out", f"{out}/", "--chunk-size", "2",
             "--workers", "2"]
     proc = subprocess.Popen([sys.executable, str(HERE / "_batch_cli.py"), "score", *args],
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
@@ -567,12 +575,12 @@ def test_client_of_a_local_cluster_interrupted_with_ctrl_c(registry, forty, tmp_
             proc.kill()
             proc.wait()
     assert proc.returncode == 130  # 128 + SIGINT (shell convention)
-    assert re.search(r"interrupted: \d+ of 20 chunk\(s\) have their part.*--resume", err), err
+    assert re.search(r"interrupted: \d+ of 100 chunk\(s\) have their part.*--resume", err), err
     assert not (out / SUMMARY_FILE).exists()  # only a run that ends writes its summary
     assert not list(out.glob(".*.tmp"))
     assert _cli(*args[:-2], "--resume").exit_code == 0  # resumed in-process: same manifest
     assert sorted(d["id"] for d in _batch_lines(out)) == sorted(
-        p.stem for p in forty.glob("*.csv"))
+        p.stem for p in two_hundred.glob("*.csv"))
 
 
 def test_worker_killed_mid_run_every_segment_once(portable, forty, tmp_path, registry):
