@@ -29,3 +29,25 @@ def copy_version(root: Path, *, as_version: str | None = None, active: bool = Tr
     if active:
         (root / "ACTIVE").write_text(name + "\n")
     return name
+
+
+def tiny_estimator(*, seed: int):
+    """A tiny calibrated gradient-boosted model on blob features, for registry plumbing tests
+    (one OpenMP thread: the machine is shared)."""
+    import numpy as np
+    from sklearn.calibration import CalibratedClassifierCV
+    from sklearn.datasets import make_blobs
+    from sklearn.ensemble import HistGradientBoostingClassifier
+    from sklearn.frozen import FrozenEstimator
+    from threadpoolctl import threadpool_limits
+
+    from features.catalog import FEATURE_NAMES
+    from training.classes import CLASSES
+
+    X, y = make_blobs(n_samples=300, n_features=len(FEATURE_NAMES), centers=len(CLASSES),
+                      random_state=seed)
+    labels = np.array(CLASSES)[y]
+    with threadpool_limits(limits=1):
+        hgb = HistGradientBoostingClassifier(max_iter=20, random_state=seed).fit(
+            X[:150], labels[:150])
+        return CalibratedClassifierCV(FrozenEstimator(hgb)).fit(X[150:], labels[150:])

@@ -17,11 +17,6 @@ import numpy as np
 import pandas as pd
 import pytest
 from astropy.io import fits
-from sklearn.calibration import CalibratedClassifierCV
-from sklearn.datasets import make_blobs
-from sklearn.ensemble import HistGradientBoostingClassifier
-from sklearn.frozen import FrozenEstimator
-from threadpoolctl import threadpool_limits
 from typer.testing import CliRunner
 
 from features.catalog import FEATURE_NAMES, FEATURE_VERSION
@@ -32,16 +27,11 @@ from training.classes import CLASSES
 from training.registry import activate, save_model
 from training.simulate import simulate_segment
 
+from ._registry import tiny_estimator
 
-def _estimator(*, seed: int) -> CalibratedClassifierCV:
-    """A tiny calibrated HGB on blob features (one OpenMP thread: the machine is shared)."""
-    X, y = make_blobs(n_samples=300, n_features=len(FEATURE_NAMES), centers=len(CLASSES),
-                      random_state=seed)
-    labels = np.array(CLASSES)[y]
-    with threadpool_limits(limits=1):
-        hgb = HistGradientBoostingClassifier(max_iter=20, random_state=seed).fit(
-            X[:150], labels[:150])
-        return CalibratedClassifierCV(FrozenEstimator(hgb)).fit(X[150:], labels[150:])
+
+def _estimator(*, seed: int):
+    return tiny_estimator(seed=seed)
 
 
 def _save(root: Path, version: str, *, feature_names=FEATURE_NAMES, extra_files=None) -> None:
