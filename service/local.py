@@ -109,6 +109,7 @@ def serve_process(
     workers: int = 1,
     env: Mapping[str, str] | None = None,
     extra_args: Sequence[str] = (),
+    db: Path | None = None,
     ready_timeout_s: float = 60.0,
     stop_timeout_s: float = 20.0,
 ) -> Iterator[ServedProcess]:
@@ -125,6 +126,8 @@ def serve_process(
         not passed on, so only these apply.
     extra_args : sequence of str
         More ``dipshape serve`` options.
+    db : Path, optional
+        The label store (default: a temporary file removed afterwards).
     ready_timeout_s, stop_timeout_s : float
         How long to wait for ``/readyz``, and for the server to stop after SIGINT before it is
         killed [s].
@@ -148,7 +151,7 @@ def serve_process(
             process = subprocess.Popen(
                 [str(Path(sys.executable).parent / "dipshape"), "serve", "--host", "127.0.0.1",
                  "--port", str(port), "--workers", str(workers), "--registry", str(registry),
-                 "--db", str(Path(tmp) / "store.sqlite"), *extra_args],
+                 "--db", str(db or Path(tmp) / "store.sqlite"), *extra_args],
                 env={**clean, **(env or {})}, stdout=subprocess.DEVNULL, stderr=log)
         try:
             _wait_ready(base, process, log_path, ready_timeout_s)

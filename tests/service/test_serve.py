@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import subprocess
 import sys
+import time
 from pathlib import Path
 
 import httpx
@@ -71,3 +72,58 @@ def test_a_server_without_a_model_is_reported_not_ready(tmp_path):
                                                             ready_timeout_s=5.0):
         pass
     assert info.value.code == "model_not_ready"
+
+
+def test_acknowledged_labels_survive_a_killed_server(tmp_path):
+    """Many concurrent label POSTs, then the server SIGKILLed mid-load: every label the service
+    acknowledged (201) is in the store and the database passes PRAGMA integrity_check (SQLite
+    documentation, "Atomic Commit In SQLite" and "Write-Ahead Logging")."""
+    import sqlite3
+    import threading
+
+    from service.client import DipshapeClientError
+    from service.store import LabelStore
+
+    registry = tmp_path / "models"
+    registry.mkdir()
+    copy_version(registry)
+    db = tmp_path / "labels.sqlite"
+    sim = simulate_segment("exocomet", np.random.default_rng(8), id="LS-0008-s1",
+                           cadence_min=30.0, window_days=20.0)
+    acked: list[int] = []
+    lock = threading.Lock()
+    stop = threading.Event()
+
+    def writer(k: int, base: str) -> None:
+        with DipshapeClient(base, retries=0, timeout_s=10.0) as client:
+            for i in range(200):
+                if stop.is_set():
+                    return
+                body = {"id": f"LS-{k}-{i}", "time": sim.time, "flux": sim.flux}
+                try:
+                    ack = client.submit_label(body, "exocomet", note="load test")
+                except (DipshapeClientError, httpx.HTTPError):
+                    return  # the server is gone
+                with lock:
+                    acked.append(ack["label_id"])
+
+    with serve_process(registry, db=db) as served:
+        threads = [threading.Thread(target=writer, args=(k, served.base_url)) for k in range(6)]
+        for t in threads:
+            t.start()
+        deadline = time.monotonic() + 60
+        while len(acked) < 30:  # let some labels land, then kill the server mid-load
+            assert time.monotonic() < deadline, f"only {len(acked)} labels in 60 s"
+            assert any(t.is_alive() for t in threads), "every writer stopped early"
+            time.sleep(0.01)
+        served.process.kill()  # SIGKILL: no clean-up, no final checkpoint
+        served.process.wait()
+        stop.set()
+        for t in threads:
+            t.join(timeout=30)
+    assert len(acked) >= 30
+    with LabelStore(db) as store:
+        stored = {label.label_id for label in store.labels()}
+    assert set(acked) <= stored
+    with sqlite3.connect(db) as con:
+        assert con.execute("PRAGMA integrity_check").fetchone() == ("ok",)
