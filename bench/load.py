@@ -58,7 +58,7 @@ READY_S = 60.0
 GRACE_S = 10.0
 """How long requests in flight at the end of the sustained phase may still take [s]."""
 STOP_S = 20.0
-"""How long a server may take to exit after SIGINT before it is killed [s]."""
+"""How long a server may take to exit after SIGTERM before it is killed [s]."""
 RSS_GOAL_PCT = 10.0
 
 

@@ -129,7 +129,7 @@ def serve_process(
     db : Path, optional
         The label store (default: a temporary file removed afterwards).
     ready_timeout_s, stop_timeout_s : float
-        How long to wait for ``/readyz``, and for the server to stop after SIGINT before it is
+        How long to wait for ``/readyz``, and for the server to stop after SIGTERM before it is
         killed [s].
 
     Yields
@@ -157,7 +157,9 @@ def serve_process(
             _wait_ready(base, process, log_path, ready_timeout_s)
             yield ServedProcess(base, process)
         finally:
-            process.send_signal(signal.SIGINT)
+            # SIGTERM, not SIGINT: a background job of a non-interactive shell (a CI runner)
+            # starts with SIGINT ignored (POSIX), and its children inherit that
+            process.send_signal(signal.SIGTERM)
             try:
                 process.wait(timeout=stop_timeout_s)
             except subprocess.TimeoutExpired:

@@ -554,8 +554,12 @@ def test_client_of_a_local_cluster_interrupted_with_ctrl_c(registry, two_hundred
     out = tmp_path / "out"
     args = [str(two_hundred), "--registry", str(registry), "--out", f"{out}/", "--chunk-size", "2",
             "--workers", "2"]
+    # a background job of a non-interactive shell (a CI runner) starts with SIGINT ignored and
+    # its children inherit that (POSIX); give the child the default disposition, so that
+    # Python turns SIGINT into KeyboardInterrupt as it does at a terminal
     proc = subprocess.Popen([sys.executable, str(HERE / "_batch_cli.py"), "score", *args],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     try:
         _wait_for_parts(out, 2, proc)
         proc.send_signal(signal.SIGINT)
