@@ -45,6 +45,7 @@ __all__ = [
     "OOD_RARE_NAN_FRACTION",
     "ORIGIN_COLUMN",
     "calibrate",
+    "evaluate_baseline",
     "evaluate_model",
     "fit",
     "ood_reference",
@@ -440,7 +441,7 @@ def train_and_save(
     evaluations = {
         "calibrated": evaluate_model(calibrated, test, classes=classes),
         "uncalibrated": evaluate_model(model, test, classes=classes),
-        "baseline": _evaluate_baseline(test, classes),
+        "baseline": evaluate_baseline(test, classes),
     }
     by_origin = _evaluate_by_origin(calibrated, test, classes)
     comparison = report.compare({**evaluations, **by_origin})
@@ -506,8 +507,21 @@ def _bins_of(table: pd.DataFrame) -> dict[str, np.ndarray]:
             "cadence_min": table["cadence_min"].to_numpy(dtype=np.float64)}
 
 
-def _evaluate_baseline(test: pd.DataFrame, classes: Sequence[str]) -> dict[str, Any]:
-    # the baseline knows the five built-in classes, whatever the table holds
+def evaluate_baseline(test: pd.DataFrame, classes: Sequence[str]) -> dict[str, Any]:
+    """:func:`training.report.evaluate` of the BIC model-comparison baseline on a table.
+
+    Parameters
+    ----------
+    test : pandas.DataFrame
+        Feature table with the true ``label``.
+    classes : sequence of str
+        The model's classes; the five built-in ones are added (the baseline knows those).
+
+    Returns
+    -------
+    dict
+        The evaluation (hard labels: no ECE), binned by SNR and cadence.
+    """
     known = [*classes, *(c for c in CLASSES if c not in classes)]
     return report.evaluate(test["label"].to_numpy(dtype=str), None, known,
                            y_pred=predict_baseline(test), **_bins_of(test))

@@ -111,3 +111,27 @@ def test_retrain_on_group_labels_with_a_class_of_their_own(tmp_path):
     assert group["n_samples"] == pytest.approx(0.2 * 190, abs=3)
     assert "pulsator" in group["f1"]
     assert "calibrated on group rows" in (root / "group-1" / "report" / "report.html").read_text()
+
+
+def test_evaluate_a_version_on_fresh_data_and_write_its_report(registry, tmp_path):
+    version = list_models(registry)[0].version
+    out = tmp_path / "eval"
+    with threadpool_limits(1):
+        result = runner.invoke(app, ["evaluate", version, "--registry", str(registry),
+                                     "--n", "100", "--seed", "9", "--out", str(out)])
+    assert result.exit_code == 0, result.output
+    assert f"{version} on 100 fresh simulated segments (seed 9): macro-F1 " in result.output
+    assert "BIC baseline" in result.output and "triage, not a discovery" in result.output
+    metrics = json.loads((out / "metrics.json").read_text())
+    assert metrics["n_samples"] == 100
+    assert sum(row["support"] for row in metrics["per_class"].values()) == 100
+    # the printed macro-F1 is the report's (checked against scikit-learn in test_report.py)
+    assert f"macro-F1 {metrics['macro_f1']:.3f}" in result.output
+    assert (out / "report.html").is_file() and (out / "confusion_matrix.png").is_file()
+
+
+def test_evaluate_refuses_an_unknown_version_and_half_a_label_set(registry, tmp_path):
+    result = runner.invoke(app, ["evaluate", "nope", "--registry", str(registry), "--n", "50"])
+    assert result.exit_code == 1 and "model_not_found" in result.output
+    result = runner.invoke(app, ["evaluate", "--registry", str(registry), "--labels", "x.csv"])
+    assert result.exit_code == 2 and "--labels and --segments go together" in result.output
