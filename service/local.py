@@ -16,7 +16,7 @@ import sys
 import tempfile
 import threading
 import time
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 
 import httpx
@@ -67,22 +67,8 @@ def running_service(settings: ServiceSettings, *, ready_timeout_s: float = 60.0
     thread.start()
     base = f"http://127.0.0.1:{port}"
     try:
-        deadline = time.monotonic() + ready_timeout_s
-        while True:
-            try:
-                answer = httpx.get(base + "/readyz", timeout=2.0)
-                if answer.status_code == 200:
-                    break
-                # the lifespan loads the model before the first answer: no model now, none later
-                raise ServiceError("model_not_ready", f"the service at {base} has no model: "
-                                   f"{answer.json().get('detail', answer.text)}; is there an "
-                                   "active model in the registry?")
-            except httpx.TransportError:
-                pass
-            if time.monotonic() > deadline or not thread.is_alive():
-                raise ServiceError("model_not_ready", f"the service at {base} was not ready "
-                                   f"within {ready_timeout_s:g} s (is there an active model?)")
-            time.sleep(0.1)
+        _wait_ready(base, ready_timeout_s,
+                    gone=lambda: None if thread.is_alive() else "the server thread stopped")
         yield base
     finally:
         server.should_exit = True
@@ -154,7 +140,9 @@ def serve_process(
                  "--db", str(db or Path(tmp) / "store.sqlite"), *extra_args],
                 env={**clean, **(env or {})}, stdout=subprocess.DEVNULL, stderr=log)
         try:
-            _wait_ready(base, process, log_path, ready_timeout_s)
+            _wait_ready(base, ready_timeout_s, gone=lambda: None if process.poll() is None else (
+                f"dipshape serve exited ({process.returncode}): "
+                + log_path.read_text(errors="replace")[-2000:]))
             yield ServedProcess(base, process)
         finally:
             # SIGTERM, not SIGINT: a background job of a non-interactive shell (a CI runner)
@@ -167,16 +155,27 @@ def serve_process(
                 process.wait()
 
 
-def _wait_ready(base: str, process: subprocess.Popen[bytes], log: Path, timeout_s: float
-                ) -> None:
+def _wait_ready(base: str, timeout_s: float, *, gone: Callable[[], str | None]) -> None:
+    """Poll ``/readyz`` until it answers 200.
+
+    The lifespan loads the model before the first answer, so a first 503 means there is no
+    model now and will be none later: refused at once. ``gone`` returns why the server is no
+    longer running (None while it runs).
+    """
     deadline = time.monotonic() + timeout_s
     while time.monotonic() < deadline:
-        if process.poll() is not None:
-            raise ServiceError("model_not_ready", f"dipshape serve exited ({process.returncode})"
-                               f": {log.read_text(errors='replace')[-2000:]}")
-        with contextlib.suppress(httpx.TransportError):
-            if httpx.get(base + "/readyz", timeout=5.0).status_code == 200:
-                return
-        time.sleep(0.2)
-    raise ServiceError("model_not_ready", f"dipshape serve at {base} was not ready within "
+        reason = gone()
+        if reason is not None:
+            raise ServiceError("model_not_ready", f"the service at {base} is not running: "
+                               f"{reason}")
+        try:
+            answer = httpx.get(base + "/readyz", timeout=5.0)
+        except httpx.TransportError:
+            time.sleep(0.1)
+            continue
+        if answer.status_code == 200:
+            return
+        raise ServiceError("model_not_ready", f"the service at {base} has no model: "
+                           f"{answer.text[:300]}; is there an active model in the registry?")
+    raise ServiceError("model_not_ready", f"the service at {base} was not ready within "
                        f"{timeout_s:g} s")
