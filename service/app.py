@@ -200,20 +200,16 @@ class ModelHolder:
 
 
 class _Gate:
-    """At most ``concurrency`` jobs in threads, at most ``queue`` waiting; the rest refused."""
+    """Jobs in threads, at most ``concurrency`` at once, each within ``timeout_s``.
 
-    def __init__(self, concurrency: int, queue: int, timeout_s: float, retry_after_s: int):
+    Refusing work beyond the queue is :class:`_Admission`'s, before any body is read.
+    """
+
+    def __init__(self, concurrency: int, timeout_s: float):
         self.limiter = anyio.CapacityLimiter(concurrency)
-        self.capacity = concurrency + queue
         self.timeout_s = timeout_s
-        self.retry_after_s = retry_after_s
-        self.in_flight = 0
 
     async def run(self, fn: Callable[..., T], *args: Any) -> T:
-        if self.in_flight >= self.capacity:
-            raise ServiceError("overloaded", f"{self.in_flight} requests are already waiting; "
-                               f"retry after {self.retry_after_s} s")
-        self.in_flight += 1
         try:
             with anyio.fail_after(self.timeout_s):
                 return await anyio.to_thread.run_sync(fn, *args, limiter=self.limiter,
@@ -221,8 +217,6 @@ class _Gate:
         except TimeoutError:
             raise ServiceError("timeout", f"scoring took longer than {self.timeout_s:g} s "
                                "(the request time limit)") from None
-        finally:
-            self.in_flight -= 1
 
 
 _ADMITTED_ROUTES = frozenset({"/v1/score", "/v1/score/batch", "/v1/score/file", "/v1/plot",
@@ -237,9 +231,10 @@ class _Admission:
     are counted too, and a refusal costs neither an upload nor a parse.
     """
 
-    def __init__(self, app: Any, state: _State) -> None:
+    def __init__(self, app: Any, capacity: int, retry_after_s: int) -> None:
         self.app = app
-        self.state = state
+        self.capacity = capacity
+        self.retry_after_s = retry_after_s
         self.in_flight = 0
 
     async def __call__(self, scope: Any, receive: Any, send: Any) -> None:
@@ -247,15 +242,14 @@ class _Admission:
                 or scope.get("path") not in _ADMITTED_ROUTES:
             await self.app(scope, receive, send)
             return
-        gate = self.state.gate
-        if self.in_flight >= gate.capacity:
+        if self.in_flight >= self.capacity:
             err = ServiceError("overloaded", f"{self.in_flight} requests are in progress or "
-                               f"waiting; retry after {gate.retry_after_s} s")
+                               f"waiting; retry after {self.retry_after_s} s")
             body = json.dumps(http_body(err)).encode()
             await send({"type": "http.response.start", "status": http_status(err), "headers": [
                 (b"content-type", b"application/json"),
                 (b"content-length", str(len(body)).encode()),
-                (b"retry-after", str(gate.retry_after_s).encode())]})
+                (b"retry-after", str(self.retry_after_s).encode())]})
             await send({"type": "http.response.body", "body": body})
             return
         self.in_flight += 1
@@ -330,8 +324,7 @@ def create_app(settings: ServiceSettings | None = None) -> FastAPI:
     root = settings.registry or default_registry_root()
     state = _State(
         settings=settings, keys=keys, holder=ModelHolder(root, check_s=settings.active_check_s),
-        gate=_Gate(settings.max_concurrency, settings.max_queue, settings.request_timeout_s,
-                   settings.retry_after_s),
+        gate=_Gate(settings.max_concurrency, settings.request_timeout_s),
         metrics=ServiceMetrics(),
     )
 
@@ -369,7 +362,9 @@ def create_app(settings: ServiceSettings | None = None) -> FastAPI:
                            allow_methods=["GET", "POST"], allow_headers=[API_KEY_HEADER,
                                                                          "Content-Type"])
     _add_error_handlers(app, state)
-    app.add_middleware(_Admission, state=state)  # inside the metrics, so refusals are counted
+    # inside the metrics, so refusals are counted
+    app.add_middleware(_Admission, capacity=settings.max_concurrency + settings.max_queue,
+                       retry_after_s=settings.retry_after_s)
     _add_metrics_middleware(app, state)
     _add_routes(app, state)
     return app

@@ -23,7 +23,7 @@ from fastapi.testclient import TestClient
 
 from features.catalog import FEATURE_VERSION
 from features.segment import make_segment
-from service.app import ModelHolder, _Admission, _Gate, check_bind, create_app
+from service.app import ModelHolder, _Admission, check_bind, create_app
 from service.auth import hash_key
 from service.errors import ServiceError
 from service.scoring import load_ood, result_schema, score_segment
@@ -386,20 +386,41 @@ def test_holder_follows_an_activation_made_elsewhere(registry):
 
 
 def test_overload_answers_503_at_once():
-    gate = _Gate(concurrency=1, queue=0, timeout_s=30.0, retry_after_s=2)
-    release = threading.Event()
+    # one place (concurrency 1, queue 0), held by a request whose work blocks: the next one is
+    # refused at once, before its body is read, and the count returns to 0 afterwards
+    release = anyio.Event()
+
+    async def blocking_app(scope, receive, send):
+        await release.wait()
+        await send({"type": "http.response.start", "status": 200, "headers": []})
+        await send({"type": "http.response.body", "body": b""})
+
+    admission = _Admission(blocking_app, capacity=1, retry_after_s=2)
+    sent: list[dict] = []
+
+    async def send(message):
+        sent.append(message)
+
+    async def never():  # the body of a refused request is never read
+        raise AssertionError("the refused request's body was read")
+
+    scope = {"type": "http", "method": "POST", "path": "/v1/score"}
 
     async def main():
         async with anyio.create_task_group() as tg:
-            tg.start_soon(gate.run, release.wait)
+            tg.start_soon(admission, scope, never, send)
             await anyio.sleep(0.05)
-            with pytest.raises(ServiceError) as info:
-                await gate.run(lambda: None)
-            assert info.value.code == "overloaded"
+            assert admission.in_flight == 1
+            await admission(scope, never, send)  # returns at once with the 503
+            start = next(m for m in sent if m["type"] == "http.response.start")
+            assert start["status"] == 503
+            assert (b"retry-after", b"2") in start["headers"]
+            body = json.loads(next(m for m in sent if m["type"] == "http.response.body")["body"])
+            assert body["error"] == "overloaded"
             release.set()
 
     anyio.run(main)
-    assert gate.in_flight == 0
+    assert admission.in_flight == 0
 
 
 def test_request_time_limit(registry, tmp_path, planet):
