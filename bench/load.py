@@ -45,7 +45,7 @@ from dataclasses import dataclass, field  # noqa: E402
 import httpx  # noqa: E402
 import numpy as np  # noqa: E402
 
-from service.local import serve_process  # noqa: E402
+from service.local import memory_mb, process_tree, serve_process  # noqa: E402
 from service.settings import is_loopback  # noqa: E402
 from training.classes import CLASSES  # noqa: E402
 from training.simulate import simulate_segment  # noqa: E402
@@ -121,30 +121,6 @@ def serve(workers: int, registry: Path, env: Mapping[str, str]) -> Iterator[tupl
     with serve_process(registry, workers=workers, env=env, ready_timeout_s=READY_S,
                        stop_timeout_s=STOP_S) as served:
         yield served.base_url, served.pid
-
-
-def process_tree(pid: int) -> list[int]:
-    """``pid`` and all its descendants (from /proc/<pid>/task/<tid>/children), parents first."""
-    out = [pid]
-    for task in sorted(Path(f"/proc/{pid}/task").glob("*")):
-        try:
-            kids = [int(x) for x in (task / "children").read_text().split()]
-        except OSError:
-            continue
-        for kid in kids:
-            out += process_tree(kid)
-    return out
-
-
-def rss_mb(pid: int) -> float:
-    """Resident memory of a process [MB] (VmRSS of /proc/<pid>/status), NaN once it is gone."""
-    try:
-        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
-            if line.startswith("VmRSS:"):
-                return int(line.split()[1]) / 1024
-    except OSError:
-        pass
-    return float("nan")
 
 
 def _role(pid: int, root: int, *, single: bool) -> str:
@@ -261,7 +237,7 @@ def _rss_table(root: int, *, single: bool) -> dict[int, tuple[str, float]]:
 
     ``single``: one worker, so uvicorn scores in the server process itself.
     """
-    return {p: (_role(p, root, single=single), rss_mb(p)) for p in process_tree(root)}
+    return {p: (_role(p, root, single=single), memory_mb(p)) for p in process_tree(root)}
 
 
 def run_sustained(args: argparse.Namespace, bodies: list[Body]) -> None:

@@ -33,7 +33,7 @@ import numpy as np  # noqa: E402
 
 from features.catalog import FEATURE_VERSION  # noqa: E402
 from features.segment import make_segment  # noqa: E402
-from service.local import serve_process  # noqa: E402
+from service.local import memory_mb, serve_process  # noqa: E402
 from service.scoring import load_ood, score_segment  # noqa: E402
 from training.registry import load_model  # noqa: E402
 from training.simulate import simulate_segment  # noqa: E402
@@ -64,25 +64,6 @@ def _in_process_ms(segments: list[dict], registry: Path) -> float:
         score_segment(seg, model, ood=ood)
         times.append(time.perf_counter() - t0)
     return float(np.median(times) * 1e3)
-
-
-def _children(pid: int) -> list[int]:
-    try:
-        text = Path(f"/proc/{pid}/task/{pid}/children").read_text()
-    except OSError:
-        return []
-    kids = [int(x) for x in text.split()]
-    return kids + [g for k in kids for g in _children(k)]
-
-
-def _hwm_mb(pid: int) -> float:
-    try:
-        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
-            if line.startswith("VmHWM:"):
-                return int(line.split()[1]) / 1024
-    except OSError:
-        pass
-    return float("nan")
 
 
 def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, registry: Path,
@@ -127,7 +108,8 @@ def _run(workers: int, segments: list[dict], n_requests: int, max_s: float, regi
                 errors += status != 200
         wall = time.perf_counter() - start
         lat = np.array(latencies) * 1e3
-        rss = [_hwm_mb(p) for p in _children(served.pid)] or [_hwm_mb(served.pid)]
+        tree = served.process_tree()
+        rss = [memory_mb(p, "VmHWM") for p in (tree[1:] or tree)]  # workers, else the server
         print(f"{workers} worker(s), {workers} client(s): {len(lat) / wall:6.1f} req/s, "
               f"p50 {np.percentile(lat, 50):6.1f} ms, p99 {np.percentile(lat, 99):6.1f} ms, "
               f"{errors} errors in {len(lat)} requests")

@@ -26,7 +26,8 @@ from service.app import create_app
 from service.errors import ServiceError
 from service.settings import ServiceSettings
 
-__all__ = ["ServedProcess", "free_loopback_port", "running_service", "serve_process"]
+__all__ = ["ServedProcess", "free_loopback_port", "memory_mb", "process_tree",
+           "running_service", "serve_process"]
 
 
 def free_loopback_port() -> int:
@@ -86,6 +87,35 @@ class ServedProcess:
     def pid(self) -> int:
         """The pid of the ``dipshape serve`` process (its uvicorn workers are children)."""
         return self.process.pid
+
+    def process_tree(self) -> list[int]:
+        """The server's pid and all its descendants, parents first (Linux ``/proc``)."""
+        return process_tree(self.pid)
+
+
+def process_tree(pid: int) -> list[int]:
+    """``pid`` and all its descendants, parents first (``/proc/<pid>/task/*/children``)."""
+    out = [pid]
+    for task in sorted(Path(f"/proc/{pid}/task").glob("*")):
+        try:
+            kids = [int(x) for x in (task / "children").read_text().split()]
+        except OSError:
+            continue
+        for kid in kids:
+            out += process_tree(kid)
+    return out
+
+
+def memory_mb(pid: int, field: str = "VmRSS") -> float:
+    """A memory figure of a process [MB] from ``/proc/<pid>/status`` (Linux ``proc(5)``):
+    ``VmRSS`` resident now, ``VmHWM`` peak resident; NaN once the process is gone."""
+    try:
+        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+            if line.startswith(f"{field}:"):
+                return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return float("nan")
 
 
 @contextlib.contextmanager

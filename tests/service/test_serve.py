@@ -22,12 +22,17 @@ DIPSHAPE = str(Path(sys.executable).parent / "dipshape")
 
 
 @pytest.fixture(scope="module")
-def server(tmp_path_factory):
+def server_process(tmp_path_factory):
     registry = tmp_path_factory.mktemp("serve") / "models"
     registry.mkdir()
     copy_version(registry)
     with serve_process(registry, env={"DIPSHAPE_MAX_BODY_BYTES": str(1024 * 1024)}) as served:
-        yield served.base_url
+        yield served
+
+
+@pytest.fixture(scope="module")
+def server(server_process):
+    return server_process.base_url
 
 
 def test_scores_over_real_http(server):
@@ -127,3 +132,14 @@ def test_acknowledged_labels_survive_a_killed_server(tmp_path):
     assert set(acked) <= stored
     with sqlite3.connect(db) as con:
         assert con.execute("PRAGMA integrity_check").fetchone() == ("ok",)
+
+
+def test_process_tree_and_memory_of_a_served_process(server_process):
+    # Linux proc(5): VmHWM (peak resident) is never below VmRSS (resident now)
+    from service.local import memory_mb
+
+    tree = server_process.process_tree()
+    assert tree[0] == server_process.pid
+    rss, peak = memory_mb(tree[0]), memory_mb(tree[0], "VmHWM")
+    assert 10 < rss <= peak
+    assert np.isnan(memory_mb(2**22 + 12345))  # no such process
